@@ -1,0 +1,47 @@
+# luforge: every target makes its own virtual environment first (.venv), so a fresh clone needs only make.
+PYTHON ?= python3
+VENV   := .venv
+BIN    := $(VENV)/bin
+STAMP  := $(VENV)/.installed
+SPEC   := generated/kernels.toml
+# regeneration checks need only jinja2: use the venv when it exists, else the system Python
+GENPY  := $(shell [ -x $(BIN)/python ] && echo $(BIN)/python || echo $(PYTHON))
+
+.PHONY: venv demo test check-generated regenerate golden bench clean
+
+$(STAMP): pyproject.toml setup.py
+	$(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+	$(BIN)/python -m pip install --quiet -e '.[test]'
+	touch $(STAMP)
+
+venv: $(STAMP)
+
+# the main job on the built-in example: generate the catalogue, build and verify it, run the scenario
+demo: $(STAMP)
+	$(BIN)/luforge generate $(SPEC)
+	$(BIN)/luforge verify $(SPEC)
+	$(BIN)/python examples/tidal_station.py
+
+test: $(STAMP)
+	$(BIN)/python -m pytest -q -n 2 tests
+
+# generated/ must be exactly what the generator makes from its spec
+check-generated:
+	@tmp=$$(mktemp -d) && $(GENPY) -m derive.cli generate $(SPEC) -o $$tmp >/dev/null && \
+	  for f in $$tmp/*; do cmp -s $$f generated/$$(basename $$f) || { echo "differs: generated/$$(basename $$f)"; rm -rf $$tmp; exit 1; }; done && \
+	  for f in generated/*.c generated/*.h generated/*.py; do [ -e $$tmp/$$(basename $$f) ] || { echo "stale: $$f"; rm -rf $$tmp; exit 1; }; done; \
+	  rm -rf $$tmp
+
+regenerate:
+	rm -f generated/*.c generated/*.h generated/*.py
+	$(GENPY) -m derive.cli generate $(SPEC)
+
+golden: $(STAMP)
+	LUFORGE_UPDATE_GOLDEN=1 $(BIN)/python -m pytest -q tests/test_golden.py
+
+bench: $(STAMP)
+	$(BIN)/python bench/bench.py
+
+clean:
+	rm -rf $(VENV) build *.egg-info .pytest_cache .hypothesis

@@ -1,0 +1,179 @@
+"""Lowering: a derivation's block updates become loop IR over index ranges for one block size, and a kernel's
+options become its routines (factor, the inner unblocked loop, the two triangular solves, the solve driver)."""
+from __future__ import annotations
+
+from . import operation
+from .derivation import THREE_WAY, Derivation, Update, derive
+from .invariants import block_label, content_text, make, TWO_WAY, content_of
+from .ir import (Block, Call, FactorCall, Gemm, Kernel, Lin, Loop, Param, PivotCheck, PivotSearch, RowSwaps,
+                 Routine, Scale, Span, Trsm, lin)
+from .operation import Operation
+from .options import KernelOptions
+
+K = "k"
+KB = "kb"
+
+
+class Frame:
+    """How partition positions 0/1/2 map to index ranges for one loop: processed, current, remaining."""
+
+    def __init__(self, op: Operation, step: int):
+        self.op = op
+        self.kb = lin(1) if step == 1 else lin(KB)
+
+    def span(self, position: int, extent: str) -> Span:
+        k, kb, e = lin(K), self.kb, lin(extent)
+        if self.op.direction == "forward":
+            bounds = [(lin(0), k), (k, k + kb), (k + kb, e)]
+        else:
+            bounds = [(e - k, e), (e - k - kb, e - k), (lin(0), e - k - kb)]
+        lo, hi = bounds[position]
+        return Span(lo, hi)
+
+    def union(self, positions: list[int], extent: str) -> Span:
+        spans = [self.span(p, extent) for p in sorted(positions)]
+        if self.op.direction == "forward":
+            return Span(spans[0].lo, spans[-1].hi)
+        return Span(spans[-1].lo, spans[0].hi)
+
+
+class Shapes:
+    """Matrix arguments of a routine: op matrix name -> (argument, rows extent, cols extent)."""
+
+    def __init__(self, args: dict[str, tuple[str, str, str]]):
+        self.args = args
+
+    def block(self, frame: Frame, matrix: str, index: tuple[int, ...]) -> Block:
+        arg, rows, cols = self.args[matrix]
+        r = frame.span(index[0], rows)
+        c = frame.span(index[1], cols) if len(index) > 1 else Span(lin(0), lin(cols))
+        return Block(arg, r, c)
+
+
+def gemm_shape(c: Block, a: Block) -> str:
+    m1, n1, k1 = c.rows.is_unit(), c.cols.is_unit(), a.cols.is_unit()
+    if m1 and n1:
+        return "dot"
+    if n1:
+        return "gemv_n"
+    if m1:
+        return "gemv_t"
+    if k1:
+        return "ger"
+    return "gemm"
+
+
+def lower_updates(d: Derivation, step: int, shapes: Shapes, inner: str | None) -> tuple:
+    op = d.operation
+    frame = Frame(op, step)
+    tgt = op.target
+    out = []
+    for u in d.updates:
+        blk = lambda idx, m=tgt: shapes.block(frame, m, idx)  # noqa: E731
+        if u.kind == "gemm":
+            c = blk(u.targets[0])
+            a, b = (shapes.block(frame, r.matrix, r.index) for r in u.reads)
+            out.append(Gemm(c, a, b, gemm_shape(c, a), u.source))
+        elif u.kind == "trsm":
+            (tri_use,) = u.reads
+            tri = shapes.block(frame, tri_use.matrix, tri_use.index)
+            b = blk(u.targets[0])
+            if tri.rows.is_unit():
+                if tri_use.symbol == "U":
+                    out.append(Scale(b, tri, u.source))
+                # a 1x1 unit-lower factor is the identity: nothing to do
+            else:
+                out.append(Trsm(b, tri, u.side, tri_use.symbol, u.source))
+        elif u.kind == "factor":
+            b = blk(u.targets[0])
+            out.append(PivotCheck(b, u.source) if step == 1 else FactorCall(b, inner, False, u.source))
+        elif u.kind == "panel":
+            arg, rows, cols = shapes.args[tgt]
+            col = sorted({t[1] for t in u.targets})
+            panel = Block(arg, frame.union([t[0] for t in u.targets], rows), frame.span(col[0], cols))
+            out.append(PivotSearch(panel, u.source) if step == 1 else FactorCall(panel, inner, True, u.source))
+        elif u.kind == "swap":
+            arg, rows, cols = shapes.args[tgt]
+            which = "left" if u.column < 1 else "right"
+            out.append(RowSwaps(arg, frame.span(u.column, cols), frame.span(1, rows),
+                                f"the panel's interchanges, applied to the columns {which} of it"))
+        else:
+            raise AssertionError(u.kind)
+    return tuple(out)
+
+
+def invariant_text(op: Operation, words: tuple[str, ...], label: str) -> str:
+    parts = []
+    for r, w in zip(op.regions, words):
+        c = content_of(r.content_of(w), r.position, frozenset({1}))
+        parts.append(f"{r.label} {w} (holds {content_text(op, r.position, c, TWO_WAY)})")
+    return f"{label}: " + "; ".join(parts)
+
+
+def partition_text(op: Operation, frame: Frame, extent: str) -> str:
+    from .printing import show_span
+    return ", ".join(f"{p}: {show_span(frame.span(p, extent))}" for p in THREE_WAY)
+
+
+def lower_loop(d: Derivation, step: int, shapes: Shapes, extent: str, inner: str | None, label: str) -> Loop:
+    op = d.operation
+    body = lower_updates(d, step, shapes, inner)
+    part = partition_text(op, Frame(op, step), extent)
+    return Loop(K, lin(extent), step, body, invariant_text(op, d.invariant.words, label), part)
+
+
+def lower_kernel(o: KernelOptions) -> Kernel:
+    lu, lo, up = operation.LU, operation.LOWER_SOLVE, operation.UPPER_SOLVE
+    pivoted = o.pivoting != "none"
+    on_zero = "record" if pivoted else "stop"
+    piv = (Param("ipiv", "pivots"),) if pivoted else ()
+    cpiv = (Param("ipiv", "const_pivots"),) if pivoted else ()
+    routines = []
+    inner_name = None
+    main = make(lu, o.invariant)
+    if o.block > 1:
+        inner_name = f"{o.name}_inner"
+        inner_inv = make(lu, o.inner)
+        dv = derive(lu, inner_inv, o.pivoting)
+        shapes = Shapes({"A": ("a", "m", "n")})
+        loop = lower_loop(dv, 1, shapes, "n", None, inner_inv.label)
+        routines.append(Routine(
+            inner_name, "inner",
+            (Param("m", "size"), Param("n", "size"), Param("a", "matrix"), Param("lda", "size")) + piv,
+            (loop,), on_zero,
+            f"unblocked {inner_inv.label} LU of an m x n block (m >= n)", (("a", "lda"),), (("a", "m,n"),)))
+    dv = derive(lu, main, o.pivoting)
+    shapes = Shapes({"A": ("a", "n", "n")})
+    loop = lower_loop(dv, o.block, shapes, "n", inner_name, main.label)
+    routines.append(Routine(
+        o.name, "factor", (Param("n", "size"), Param("a", "matrix"), Param("lda", "size")) + piv, (loop,),
+        on_zero, "LU factorization", (("a", "lda"),), (("a", "n,n"),)))
+    solve_args = (Param("n", "size"), Param("nrhs", "size"), Param("lu", "const_matrix"), Param("lda", "size"))
+    rhs = (Param("b", "matrix"), Param("ldb", "size"))
+    mats = (("lu", "lda"), ("b", "ldb"))
+    ext = (("lu", "n,n"), ("b", "n,nrhs"))
+    for op, words, tag in ((lo, o.solve_lower, "lower"), (up, o.solve_upper, "upper")):
+        inv = make(op, words)
+        d = derive(op, inv)
+        shapes = Shapes({"B": ("b", "n", "nrhs"), "LU": ("lu", "n", "n")})
+        loop = lower_loop(d, o.block, shapes, "n", None, inv.label)
+        routines.append(Routine(f"{o.name}_{tag}", tag, solve_args + rhs, (loop,), None, op.summary, mats, ext))
+    body = []
+    if pivoted:
+        body.append(RowSwaps("b", Span(lin(0), lin("nrhs")), Span(lin(0), lin("n")),
+                             "B := P B, the factorization's interchanges in order"))
+    body.append(Call(f"{o.name}_lower", "B := L^-1 B"))
+    body.append(Call(f"{o.name}_upper", "B := U^-1 B"))
+    routines.append(Routine(f"{o.name}_solve", "solve", solve_args + cpiv + rhs, tuple(body), None,
+                            "solve A X = B with the factorization", mats, ext))
+    return Kernel(o.name, tuple(routines))
+
+
+def lower_derivation_for_display(d: Derivation, step: int) -> Loop:
+    """The loop of one derivation alone, with generic argument names (for `luforge derive --ir`)."""
+    op = d.operation
+    if op.rank == 2:
+        shapes = Shapes({op.target: ("a", "n", "n")})
+    else:
+        shapes = Shapes({op.target: ("b", "n", "nrhs"), **{m: ("lu", "n", "n") for m in op.inputs}})
+    return lower_loop(d, step, shapes, "n", "inner" if step > 1 else None, d.invariant.label)

@@ -1,0 +1,94 @@
+"""One kernel's settings as a single frozen, validated value; everything downstream of the spec reads only this.
+The allowed values live here so the spec reader, the CLI and the docs name the same ones."""
+from __future__ import annotations
+
+import hashlib
+import json
+from dataclasses import asdict, dataclass
+
+from . import operation
+from .invariants import by_name, make
+
+SCALARS = ("double", "float")
+LAYOUTS = ("column-major", "row-major")
+PIVOTING = ("none", "partial")
+MAX_BLOCK = 4096
+
+C_KEYWORDS = frozenset("""auto break case char const continue default do double else enum extern float for goto if
+inline int long register restrict return short signed sizeof static struct switch typedef union unsigned void
+volatile while _Alignas _Alignof _Atomic _Bool _Complex _Generic _Imaginary _Noreturn _Static_assert
+_Thread_local""".split())
+
+
+@dataclass(frozen=True, slots=True)
+class KernelOptions:
+    name: str
+    invariant: tuple[str, ...]      # LU state words, in the operation's region order
+    block: int
+    inner: tuple[str, ...]          # state words of the unblocked loop used on each diagonal block or panel
+    scalar: str
+    layout: str
+    pivoting: str
+    solve_lower: tuple[str, ...]    # state words of the forward (unit lower) solve
+    solve_upper: tuple[str, ...]    # state words of the backward (upper) solve
+    spec: str = ""                  # the spec file's name, for the banner
+
+    def __post_init__(self) -> None:
+        if not is_c_identifier(self.name) or self.name in C_KEYWORDS:
+            raise ValueError(f"kernel name {self.name!r} must be a C identifier that is not a C keyword")
+        if self.scalar not in SCALARS or self.layout not in LAYOUTS or self.pivoting not in PIVOTING:
+            raise ValueError("scalar, layout or pivoting out of range")
+        if not 1 <= self.block <= MAX_BLOCK:
+            raise ValueError(f"block must be from 1 to {MAX_BLOCK}")
+        make(operation.LU, self.invariant)
+        make(operation.LU, self.inner)
+        make(operation.LOWER_SOLVE, self.solve_lower)
+        make(operation.UPPER_SOLVE, self.solve_upper)
+
+    @property
+    def loop(self) -> str:
+        return make(operation.LU, self.invariant).label
+
+    @property
+    def inner_loop(self) -> str:
+        return make(operation.LU, self.inner).label
+
+    @property
+    def lower_loop(self) -> str:
+        return make(operation.LOWER_SOLVE, self.solve_lower).label
+
+    @property
+    def upper_loop(self) -> str:
+        return make(operation.UPPER_SOLVE, self.solve_upper).label
+
+    def settings(self) -> dict:
+        """The settings that determine the emitted code (the spec file's name does not)."""
+        d = asdict(self)
+        d.pop("spec")
+        d.update(loop=self.loop, inner_loop=self.inner_loop, lower_loop=self.lower_loop,
+                 upper_loop=self.upper_loop)
+        return d
+
+    def digest(self) -> str:
+        blob = json.dumps(self.settings(), sort_keys=True, separators=(",", ":"))
+        return hashlib.sha256(blob.encode()).hexdigest()[:16]
+
+
+def is_c_identifier(s: str) -> bool:
+    return bool(s) and (s[0].isalpha() or s[0] == "_") and all(ch.isalnum() or ch == "_" for ch in s) and s.isascii()
+
+
+DEFAULT_SOLVE_LOOP = {"column-major": "outer-product", "row-major": "inner-product"}
+# why: the outer-product form reads L and U by columns and the inner-product form by rows, so each reads the
+# factor along its storage order (common practice)
+
+
+def make_options(name: str, loop: str, block: int = 1, inner: str | None = None, scalar: str = "double",
+                 layout: str = "column-major", pivoting: str = "none", solve_loop: str | None = None,
+                 spec: str = "") -> KernelOptions:
+    """Convenience constructor from trade names (the spec reader validates and reports errors itself)."""
+    inv = by_name(operation.LU, loop).words
+    inn = by_name(operation.LU, inner or loop).words
+    sl = solve_loop or DEFAULT_SOLVE_LOOP[layout]
+    return KernelOptions(name, inv, block, inn if block > 1 else inv, scalar, layout, pivoting,
+                         by_name(operation.LOWER_SOLVE, sl).words, by_name(operation.UPPER_SOLVE, sl).words, spec)

@@ -1,0 +1,201 @@
+"""The TOML spec: read it, check every kernel entry against the allowed keys and values, and turn each into
+KernelOptions. All problems are collected first; nothing is generated from a spec with any of them."""
+from __future__ import annotations
+
+import tomllib
+from pathlib import Path
+
+from . import operation
+from .derivation import derive
+from .invariants import InfeasibleInvariant, by_name, from_mapping
+from .options import (C_KEYWORDS, DEFAULT_SOLVE_LOOP, LAYOUTS, MAX_BLOCK, PIVOTING, SCALARS, KernelOptions,
+                      is_c_identifier)
+
+KERNEL_KEYS = ("name", "loop", "invariant", "block", "inner", "scalar", "layout", "pivoting", "solve_loop")
+DEFAULT_KEYS = tuple(k for k in KERNEL_KEYS if k != "name")
+TOP_KEYS = ("defaults", "kernel")
+BUILTIN_DEFAULTS = {"block": 1, "scalar": "double", "layout": "column-major", "pivoting": "none"}
+# symbols a kernel emits besides its own name; another kernel may not take one of them
+PUBLIC_SUFFIXES = ("_solve",)
+
+
+class SpecError(Exception):
+    """One or more problems in a spec; str() is one line per problem."""
+
+    def __init__(self, problems: list[str]):
+        super().__init__("\n".join(problems))
+        self.problems = problems
+
+
+def _loops(op) -> list[str]:
+    return [n for _, n in op.names]
+
+
+def load(path: str | Path) -> list[KernelOptions]:
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except OSError as e:
+        raise SpecError([f"{path}: cannot read the spec: {e.strerror}"]) from None
+    return parse(text, path.name, str(path))
+
+
+def parse(text: str, spec_name: str, where: str | None = None) -> list[KernelOptions]:
+    where = where or spec_name
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as e:
+        raise SpecError([f"{where}: not valid TOML: {e}"]) from None
+    problems: list[str] = []
+    for key in data:
+        if key not in TOP_KEYS:
+            problems.append(f"{where}: unknown top-level key {key!r}; allowed: [defaults] and [[kernel]]")
+    defaults = data.get("defaults", {})
+    if not isinstance(defaults, dict):
+        problems.append(f"{where}: 'defaults' must be a table ([defaults])")
+        defaults = {}
+    for key in defaults:
+        if key not in DEFAULT_KEYS:
+            allowed = ", ".join(DEFAULT_KEYS)
+            problems.append(f"{where}: [defaults]: unknown key {key!r}; allowed: {allowed}")
+    kernels = data.get("kernel")
+    if kernels is None:
+        problems.append(f"{where}: no kernels: add at least one [[kernel]] table")
+        kernels = []
+    elif not isinstance(kernels, list) or not all(isinstance(k, dict) for k in kernels):
+        problems.append(f"{where}: 'kernel' must be an array of tables ([[kernel]])")
+        kernels = []
+    out: list[KernelOptions] = []
+    seen: dict[str, int] = {}
+    for i, entry in enumerate(kernels, start=1):
+        opts = _kernel(entry, defaults, i, spec_name, where, problems)
+        if opts is not None:
+            out.append(opts)
+    names = [o.name for o in out]
+    for o in out:
+        low = o.name.lower()
+        if low in seen:
+            other = names[seen[low]]
+            what = "is given twice" if other == o.name else f"differs from {other!r} only in case"
+            problems.append(f"{where}: kernel '{o.name}': key 'name': {o.name!r} {what}; every kernel needs its "
+                            f"own name (file names, include guards and macros are derived from it)")
+        else:
+            seen[low] = names.index(o.name)
+        for suffix in PUBLIC_SUFFIXES:
+            if o.name.endswith(suffix) and o.name[: -len(suffix)] in names:
+                problems.append(f"{where}: kernel '{o.name}': key 'name': clashes with the {suffix} function of "
+                                f"kernel '{o.name[: -len(suffix)]}'")
+    if problems:
+        raise SpecError(problems)
+    return out
+
+
+def _kernel(entry: dict, defaults: dict, i: int, spec_name: str, where: str,
+            problems: list[str]) -> KernelOptions | None:
+    raw_name = entry.get("name")
+    label = f"kernel '{raw_name}'" if isinstance(raw_name, str) else f"kernel #{i}"
+    start = len(problems)
+
+    def bad(key: str, msg: str) -> None:
+        problems.append(f"{where}: {label}: key '{key}': {msg}")
+
+    for key in entry:
+        if key not in KERNEL_KEYS:
+            bad(key, f"unknown key; allowed: {', '.join(KERNEL_KEYS)}")
+    if raw_name is None:
+        bad("name", "missing; every [[kernel]] needs a name (a C identifier)")
+    elif not isinstance(raw_name, str) or not is_c_identifier(raw_name):
+        bad("name", f"{raw_name!r} is not a C identifier; allowed: ASCII letters, digits and '_', not starting "
+                    f"with a digit")
+    elif raw_name in C_KEYWORDS:
+        bad("name", f"{raw_name!r} is a C keyword; choose another name")
+
+    merged = dict(BUILTIN_DEFAULTS)
+    merged.update({k: v for k, v in defaults.items() if k in DEFAULT_KEYS})
+    if "loop" in entry or "invariant" in entry:
+        merged.pop("loop", None)
+        merged.pop("invariant", None)
+    merged.update({k: v for k, v in entry.items() if k in KERNEL_KEYS})
+
+    def choice(key: str, allowed) -> str | None:
+        v = merged.get(key)
+        if not isinstance(v, str) or v not in allowed:
+            bad(key, f"{v!r} is not allowed; allowed: {', '.join(allowed)}")
+            return None
+        return v
+
+    scalar = choice("scalar", SCALARS)
+    layout = choice("layout", LAYOUTS)
+    pivoting = choice("pivoting", PIVOTING)
+    block = merged.get("block")
+    if isinstance(block, bool) or not isinstance(block, int) or not 1 <= block <= MAX_BLOCK:
+        bad("block", f"{block!r} is not allowed; allowed: an integer from 1 (unblocked) to {MAX_BLOCK}")
+        block = None
+
+    lu = operation.LU
+    inv = None
+    if "loop" in merged and "invariant" in merged:
+        bad("invariant", "give either 'loop' or 'invariant', not both")
+    elif "invariant" in merged:
+        spec_inv = merged["invariant"]
+        if not isinstance(spec_inv, dict) or not all(isinstance(v, str) for v in spec_inv.values()):
+            bad("invariant", "must be an inline table of block = state, e.g. "
+                             "{ A12 = \"solved\", A21 = \"solved\", A22 = \"input\" }")
+        else:
+            try:
+                inv = from_mapping(lu, spec_inv)
+            except InfeasibleInvariant as e:
+                bad("invariant", f"not a feasible loop invariant: {e}")
+    elif "loop" in merged:
+        v = choice("loop", _loops(lu))
+        inv = by_name(lu, v) if v else None
+    else:
+        bad("loop", f"missing; give 'loop' (one of {', '.join(_loops(lu))}) or 'invariant'")
+
+    inner = None
+    if "inner" in merged:
+        v = choice("inner", _loops(lu))
+        inner = by_name(lu, v) if v else None
+    else:
+        inner = inv
+    if pivoting and pivoting != "none":
+        checks = [("loop" if "invariant" not in merged else "invariant", inv)]
+        if "inner" in merged and block and block > 1:
+            checks.append(("inner", inner))
+        for key, which in checks:
+            if which is None:
+                continue
+            try:
+                derive(lu, which, pivoting)
+            except InfeasibleInvariant as e:
+                capable = [n for n in _loops(lu) if _pivots(by_name(lu, n), pivoting)]
+                bad(key, f"the {which.label} loop cannot do {pivoting} pivoting: {e}. Loops that can: "
+                         f"{', '.join(capable)}")
+
+    solve = merged.get("solve_loop", DEFAULT_SOLVE_LOOP.get(layout or "column-major"))
+    names = _loops(operation.LOWER_SOLVE)
+    lower = upper = None
+    if isinstance(solve, str) and solve in names:
+        lower = upper = solve
+    elif isinstance(solve, dict) and set(solve) <= {"lower", "upper"} and all(
+            isinstance(solve.get(k), str) and solve.get(k) in names for k in ("lower", "upper")):
+        lower, upper = solve["lower"], solve["upper"]
+    else:
+        bad("solve_loop", f"{solve!r} is not allowed; allowed: {' or '.join(names)}, or a table "
+                          f"{{ lower = ..., upper = ... }} of those")
+
+    if len(problems) > start or inv is None or inner is None:
+        return None
+    return KernelOptions(
+        name=raw_name, invariant=inv.words, block=block, inner=inner.words if block > 1 else inv.words,
+        scalar=scalar, layout=layout, pivoting=pivoting,
+        solve_lower=by_name(operation.LOWER_SOLVE, lower).words,
+        solve_upper=by_name(operation.UPPER_SOLVE, upper).words, spec=spec_name)
+
+
+def _pivots(inv, rule: str) -> bool:
+    try:
+        derive(operation.LU, inv, rule)
+        return True
+    except InfeasibleInvariant:
+        return False

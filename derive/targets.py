@@ -1,0 +1,33 @@
+"""Tables a printer reads for storage layout and scalar type. A new layout, precision or target is a new row here
+(and, for a target with its own micro-kernels, a printer subclass), never a branch in the engine."""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+
+@dataclass(frozen=True, slots=True)
+class Layout:
+    name: str
+    index: str          # C expression of the offset of element (i, j) with leading dimension ld
+    leading: str        # which extent the leading dimension must cover: "rows" or "cols"
+    describe: str
+
+
+@dataclass(frozen=True, slots=True)
+class Scalar:
+    name: str           # spec word
+    c_type: str
+    c_zero: str
+    numpy: str          # numpy dtype name
+    unit_roundoff_exp: int   # u = 2**-p  (IEEE 754 binary64: 53, binary32: 24)
+
+
+LAYOUTS = {
+    "column-major": Layout("column-major", "(i) + (j) * (ld)", "rows", "element (i, j) is a[i + j*lda]"),
+    "row-major": Layout("row-major", "(i) * (ld) + (j)", "cols", "element (i, j) is a[i*lda + j]"),
+}
+
+SCALARS = {
+    "double": Scalar("double", "double", "0.0", "float64", 53),
+    "float": Scalar("float", "float", "0.0f", "float32", 24),
+}

@@ -1,0 +1,193 @@
+"""`luforge verify`: build every kernel of a spec, run each on a fixed, seeded budget of matrices, and judge the
+results by published criteria: LAPACK's factor and solve ratios, and Higham's componentwise backward error bound."""
+from __future__ import annotations
+
+import tempfile
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from .build import build, load_python
+from .emit import emit_kernel
+from .harness import CKernel
+from .options import KernelOptions
+
+# LAPACK TESTING/dtest.in: THRESH = 30.0, the largest acceptable test ratio
+THRESHOLD = 30.0
+
+
+def unit_roundoff(dtype) -> float:
+    return float(np.finfo(dtype).eps) / 2
+
+
+def _ext(dtype):
+    return np.float64 if np.dtype(dtype) == np.float32 else np.longdouble
+
+
+def unpack(lu: np.ndarray, ext=None):
+    ext = ext or lu.dtype
+    x = lu.astype(ext)
+    return np.tril(x, -1) + np.eye(x.shape[0], dtype=ext), np.triu(x)
+
+
+def swapped(a: np.ndarray, ipiv) -> np.ndarray:
+    a = a.copy()
+    if ipiv is not None:
+        for k, p in enumerate(ipiv):
+            if p != k:
+                a[[k, p], :] = a[[p, k], :]
+    return a
+
+
+def factor_ratio(a, lu, ipiv=None) -> float:
+    """||P A - L U||_1 / (n ||A||_1 eps) (LAPACK TESTING/LIN/dget01.f; eps = unit roundoff)."""
+    n = a.shape[0]
+    if n == 0:
+        return 0.0
+    ext = _ext(lu.dtype)
+    eps = unit_roundoff(lu.dtype)
+    L, U = unpack(lu, ext)
+    r = swapped(a.astype(ext), ipiv) - L @ U
+    anorm = float(np.max(np.sum(np.abs(a.astype(ext)), axis=0)))
+    rnorm = float(np.max(np.sum(np.abs(r), axis=0)))
+    if anorm <= 0:
+        return 0.0 if rnorm == 0 else 1 / eps
+    return rnorm / anorm / n / eps
+
+
+def componentwise_ratio(a, lu, ipiv=None) -> float:
+    """max |P A - L U| / (gamma_n |L| |U|), evaluated in extended precision; <= 1 is the bound of Higham,
+    Accuracy and Stability of Numerical Algorithms, 2nd ed., 2002, Thm 9.3."""
+    n = a.shape[0]
+    if n == 0:
+        return 0.0
+    ext = _ext(lu.dtype)
+    u = unit_roundoff(lu.dtype)
+    gamma = n * u / (1 - n * u)
+    L, U = unpack(lu, ext)
+    r = np.abs(swapped(a.astype(ext), ipiv) - L @ U)
+    bound = gamma * (np.abs(L) @ np.abs(U))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        q = np.where(r == 0, 0, r / bound)
+    return float(np.max(q))
+
+
+def solve_ratio(a, x, b) -> float:
+    """max_j ||b_j - A x_j||_1 / (||A||_1 ||x_j||_1 eps) (LAPACK TESTING/LIN/dget02.f)."""
+    n = a.shape[0]
+    if n == 0 or b.shape[1] == 0:
+        return 0.0
+    ext = _ext(x.dtype)
+    eps = unit_roundoff(x.dtype)
+    A = a.astype(ext)
+    anorm = float(np.max(np.sum(np.abs(A), axis=0)))
+    r = b.astype(ext) - A @ x.astype(ext)
+    worst = 0.0
+    for j in range(b.shape[1]):
+        bn = float(np.sum(np.abs(r[:, j])))
+        xn = float(np.sum(np.abs(x[:, j].astype(ext))))
+        if anorm <= 0 or xn <= 0:
+            worst = max(worst, 0.0 if bn == 0 else 1 / eps)
+        else:
+            worst = max(worst, bn / anorm / xn / eps)
+    return worst
+
+
+def column_dominant(n: int, rng, dtype) -> np.ndarray:
+    """Strictly column diagonally dominant: Gaussian elimination with partial pivoting makes no interchanges,
+    so an unpivoted factorization is stable on it (Higham 2002, Thm 9.9)."""
+    a = rng.uniform(-1, 1, (n, n))
+    d = np.sum(np.abs(a), axis=0) - np.abs(np.diag(a))
+    a[np.arange(n), np.arange(n)] = (d + 1) * rng.choice([-1, 1], n)
+    return a.astype(dtype)
+
+
+@dataclass
+class Row:
+    name: str
+    sizes: int
+    worst_factor: float
+    worst_componentwise: float
+    worst_solve: float
+    problems: list[str]
+
+    @property
+    def passed(self) -> bool:
+        return not self.problems
+
+
+def sizes_for(block: int) -> list[int]:
+    s = {0, 1, 2, 3, 4, 5, 7, 8, 9, 16, 17, 31, 33, 48}
+    if block > 1:
+        s |= {block - 1, block, block + 1, 2 * block + 1}
+    return sorted(x for x in s if x <= 64)
+
+
+def check_kernel(ck: CKernel, py, o: KernelOptions, rng, per_size: int = 2) -> Row:
+    dtype = ck.dtype
+    problems: list[str] = []
+    wf = wc = ws = 0.0
+    sizes = sizes_for(o.block)
+    for n in sizes:
+        for _ in range(per_size):
+            a = (rng.standard_normal((n, n)).astype(dtype) if ck.pivoted else column_dominant(n, rng, dtype))
+            lda = max(1, n) + int(rng.integers(0, 4))
+            info, lu, ipiv, ok = ck.factor(a, lda)
+            if not ok:
+                problems.append(f"n={n}: wrote outside the matrix (or ipiv)")
+            if info != 0:
+                problems.append(f"n={n}: returned {info} on a nonsingular matrix")
+                continue
+            f, c = factor_ratio(a, lu, ipiv), componentwise_ratio(a, lu, ipiv)
+            wf, wc = max(wf, f), max(wc, c)
+            b = rng.standard_normal((n, 2)).astype(dtype)
+            code, x, ok2 = ck.solve(lu, b, ipiv)
+            if code != 0 or not ok2:
+                problems.append(f"n={n}: solve returned {code} or wrote outside its arguments")
+            ws = max(ws, solve_ratio(a, x, b))
+            pa = a.copy()
+            res = py.factor(pa)
+            pinfo, pipiv = (res if ck.pivoted else (res, None))
+            if pinfo != info or (ipiv is not None and not np.array_equal(pipiv, ipiv)):
+                problems.append(f"n={n}: the NumPy kernel disagrees with the C kernel (code or pivots)")
+            elif componentwise_ratio(a, pa, pipiv) > 1:
+                problems.append(f"n={n}: the NumPy kernel breaks the backward error bound")
+    if wf >= THRESHOLD:
+        problems.append(f"factor ratio {wf:.3g} >= {THRESHOLD}")
+    if wc > 1:
+        problems.append(f"componentwise backward error {wc:.3g} x gamma_n")
+    if ws >= THRESHOLD:
+        problems.append(f"solve ratio {ws:.3g} >= {THRESHOLD}")
+    return Row(o.name, len(sizes) * per_size, wf, wc, ws, problems)
+
+
+def verify(options: list[KernelOptions], seed: int = 20261202, per_size: int = 2) -> list[Row]:
+    emitted = [emit_kernel(o) for o in options]
+    mod = build([(e.options.name, dict(e.files)[f"{e.options.name}.c"], dict(e.files)[f"{e.options.name}.h"])
+                 for e in emitted])
+    rows = []
+    with tempfile.TemporaryDirectory(prefix="luforge-verify-") as tmp:
+        for e in emitted:
+            path = Path(tmp) / f"{e.options.name}.py"
+            path.write_text(dict(e.files)[path.name])
+            py = load_python(path)
+            rng = np.random.default_rng([seed, len(rows)])
+            rows.append(check_kernel(CKernel(mod, e.options), py, e.options, rng, per_size))
+    return rows
+
+
+def table(rows: list[Row]) -> str:
+    head = ("kernel", "matrices", "worst factor ratio", "worst |PA-LU|/(gamma_n|L||U|)", "worst solve ratio",
+            "result")
+    body = [(r.name, str(r.sizes), f"{r.worst_factor:.3f}", f"{r.worst_componentwise:.3f}",
+             f"{r.worst_solve:.3f}", "pass" if r.passed else "FAIL") for r in rows]
+    widths = [max(len(x) for x in col) for col in zip(head, *body)]
+    fmt = "  ".join(f"{{:<{w}}}" for w in widths)
+    out = [fmt.format(*head), fmt.format(*("-" * w for w in widths))] + [fmt.format(*b) for b in body]
+    for r in rows:
+        for p in r.problems:
+            out.append(f"{r.name}: {p}")
+    out.append(f"thresholds: factor and solve ratios < {THRESHOLD:g} (LAPACK TESTING/dtest.in), "
+               f"componentwise <= 1 (Higham 2002, Thm 9.3)")
+    return "\n".join(out) + "\n"

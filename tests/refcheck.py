@@ -1,0 +1,613 @@
+# refcheck: reference metrics and test-matrix generators for checking luforge's LU kernels.
+# Pure NumPy; everything a generated kernel is judged by lives here, independent of the generator.
+"""Reference checks for LU factorization kernels.
+
+Conventions used throughout:
+
+* matrices are logical 2-D NumPy arrays (storage layout is the caller's concern);
+* ``ipiv`` is a 0-based sequence of row swaps: for k = 0..len(ipiv)-1 swap rows
+  k and ipiv[k], in that order (LAPACK getrf's IPIV minus one), so that
+  ``apply_swaps(A, ipiv) == L @ U``.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+__all__ = [
+    "unit_roundoff",
+    "gamma",
+    "unpack",
+    "apply_swaps",
+    "factor_ratio",
+    "solve_ratio",
+    "componentwise_ratio",
+    "lapack_ge_matrix",
+    "known_factors",
+    "factor_tolerance",
+    "column_dominant",
+    "pascal_symmetric",
+    "pascal_lower",
+    "wilkinson_growth",
+    "zero_pivot_matrix",
+]
+
+
+# ---------------------------------------------------------------------------
+# Floating-point constants
+# ---------------------------------------------------------------------------
+
+def unit_roundoff(dtype) -> float:
+    """Unit roundoff u of a binary floating type (2**-53 for float64, 2**-24 for float32)."""
+    # LAPACK INSTALL/dlamch.f: with rounding assumed, DLAMCH('E') = EPSILON(0)*0.5,
+    # and Fortran EPSILON is the spacing at 1, i.e. NumPy's finfo.eps.
+    return float(np.finfo(_float_dtype(dtype)).eps) / 2.0
+
+
+def gamma(n, dtype) -> float:
+    """gamma_n = n u / (1 - n u)."""
+    # Higham, Accuracy and Stability of Numerical Algorithms, 2nd ed., 2002, eq. (3.8), Lemma 3.1.
+    n = int(n)
+    if n < 0:
+        raise ValueError("gamma_n needs n >= 0")
+    nu = n * unit_roundoff(dtype)
+    if nu >= 1.0:
+        # The lemma only holds for n u < 1; an infinite bound would make every
+        # componentwise check pass silently, so refuse instead.
+        raise ValueError(f"gamma_{n} undefined: n*u = {nu} >= 1")
+    return nu / (1.0 - nu)
+
+
+def _float_dtype(dtype) -> np.dtype:
+    dt = np.dtype(dtype)
+    if dt.kind != "f":
+        raise TypeError(f"real floating dtype required, got {dt}")
+    return dt
+
+
+def _as_float(x) -> np.ndarray:
+    x = np.asarray(x)
+    if x.dtype.kind in "biu":
+        # Integer test matrices (e.g. exact combinatorial ones) are judged as float64 data.
+        x = x.astype(np.float64)
+    _float_dtype(x.dtype)
+    return x
+
+
+# ---------------------------------------------------------------------------
+# Factor bookkeeping
+# ---------------------------------------------------------------------------
+
+def unpack(lu):
+    """Split a packed LU array into (L, U): L unit lower trapezoidal, U upper trapezoidal."""
+    lu = _as_float(lu)
+    if lu.ndim != 2:
+        raise ValueError("lu must be 2-D")
+    m, n = lu.shape
+    k = min(m, n)
+    L = np.tril(lu[:, :k], -1) + np.eye(m, k, dtype=lu.dtype)
+    U = np.triu(lu[:k, :])
+    return L, U
+
+
+def apply_swaps(a, ipiv) -> np.ndarray:
+    """Return P @ a (a copy), P being the product of the row swaps described by ipiv."""
+    out = np.array(a, copy=True)
+    if ipiv is None:
+        return out
+    m = out.shape[0]
+    for k, p in enumerate(np.asarray(ipiv).reshape(-1)):
+        p = int(p)
+        if not (0 <= p < m) or k >= m:
+            raise ValueError(f"swap ({k}, {p}) out of range for {m} rows")
+        if p != k:
+            out[[k, p]] = out[[p, k]]
+    return out
+
+
+# ---------------------------------------------------------------------------
+# Accurate residual evaluation  c - p @ q
+# ---------------------------------------------------------------------------
+#
+# Residuals of a backward-stable factorization are of the size of the rounding
+# errors made while forming them in working precision, so they must be formed
+# in a wider format:
+#   "f64": inputs with <= 24-bit significands; their products are exact in
+#          float64 (2*24 <= 53 bits) and float64 summation error is 2**-29 of
+#          the float32 unit roundoff.
+#   "ld":  float64 inputs and an x87-style long double (>= 64-bit significand):
+#          summation error relative to float64 rounding is about 2**-11.
+#   "dd":  float64 inputs without such a long double: error-free TwoProduct and
+#          TwoSum (double-double accumulation).
+
+_SPLITTER = 134217729.0  # 2**27 + 1
+# Veltkamp splitting constant for 53-bit doubles: Dekker, "A floating-point technique
+# for extending the available precision", Numer. Math. 18 (1971) (from memory);
+# also Higham 2002, §4.3 / Notes (from memory).
+
+
+def _work_mode(*dtypes) -> str:
+    nmant = max(np.finfo(_float_dtype(d)).nmant for d in dtypes)
+    if nmant <= 23:
+        return "f64"
+    if nmant > 52:
+        raise TypeError("inputs wider than float64 are not supported")
+    if np.finfo(np.longdouble).nmant >= 63:
+        return "ld"
+    return "dd"
+
+
+def _ext_unit_roundoff(mode: str) -> float:
+    """Unit roundoff of the wide format behind each evaluation mode."""
+    if mode == "f64":
+        return 2.0 ** -53
+    if mode == "ld":
+        return unit_roundoff(np.longdouble)
+    # Double-double carries about 2*53 bits; 2**-104 leaves a factor 2 of headroom
+    # over the ~2**-105 of a normalized hi+lo pair (common practice).
+    return 2.0 ** -104
+
+
+def _two_sum(a, b):
+    # Knuth's TwoSum: s + e == a + b exactly (Higham 2002, §4.3, Alg. 4.4 (from memory)).
+    s = a + b
+    bb = s - a
+    e = (a - (s - bb)) + (b - bb)
+    return s, e
+
+
+def _split(a):
+    c = _SPLITTER * a
+    hi = c - (c - a)
+    return hi, a - hi
+
+
+def _pow2_scale(x) -> float:
+    """A power of two bringing max|x| near 1, or 1.0 when no rescaling is needed."""
+    m = float(np.max(np.abs(x))) if x.size else 0.0
+    if m == 0.0 or not math.isfinite(m):
+        return 1.0
+    e = math.frexp(m)[1]
+    # Veltkamp splitting overflows above ~2**996 and TwoProduct stops being exact
+    # once partial products underflow; only rescale far from those limits so that
+    # ordinary data go through untouched.
+    if -300 <= e <= 300:
+        return 1.0
+    return math.ldexp(1.0, -e)
+
+
+def _residual(c, p, q, mode):
+    """Return (c', p', q', r, absprod) with r ~ c' - p' @ q' and absprod = |p'| @ |q'|.
+
+    c', p', q' are the inputs in the working type of ``mode``. In "dd" mode they may
+    have been multiplied by powers of two (c by the product of p's and q's factors);
+    every ratio computed from them is invariant under that scaling.
+    """
+    if mode == "f64":
+        c, p, q = (np.asarray(t, dtype=np.float64) for t in (c, p, q))
+        return c, p, q, c - p @ q, np.abs(p) @ np.abs(q)
+    if mode == "ld":
+        c, p, q = (np.asarray(t, dtype=np.longdouble) for t in (c, p, q))
+        return c, p, q, c - np.matmul(p, q), np.matmul(np.abs(p), np.abs(q))
+    if mode != "dd":
+        raise ValueError(mode)
+
+    c, p, q = (np.array(t, dtype=np.float64) for t in (c, p, q))
+    sp, sq = _pow2_scale(p), _pow2_scale(q)
+    if sp != 1.0 or sq != 1.0:
+        p = p * sp
+        q = q * sq
+        # Two separate multiplications: sp*sq alone may leave the double range.
+        c = (c * sp) * sq
+    ph, pl = _split(p)
+    qh, ql = _split(q)
+    sh = c.copy()
+    sl = np.zeros_like(c)
+    for t in range(p.shape[1]):
+        ah, al = ph[:, t:t + 1], pl[:, t:t + 1]
+        bh, bl = qh[t:t + 1, :], ql[t:t + 1, :]
+        prod = p[:, t:t + 1] * q[t:t + 1, :]
+        # Dekker's TwoProduct: prod + err == p_it * q_tj exactly (no FMA in NumPy).
+        err = ((ah * bh - prod) + ah * bl + al * bh) + al * bl
+        s, e = _two_sum(sh, -prod)
+        e = e + (sl - err)
+        sh, sl = _two_sum(s, e)
+    # The denominator-side product only needs relative accuracy ~u: nonnegative terms.
+    return c, p, q, sh, np.abs(p) @ np.abs(q)
+
+
+def _accurate_product(p, q, mode) -> np.ndarray:
+    """p @ q with a single final rounding to float64 (up to the wide format's error)."""
+    p = np.asarray(p, dtype=np.float64)
+    q = np.asarray(q, dtype=np.float64)
+    z = np.zeros((p.shape[0], q.shape[1]))
+    if mode == "dd":
+        sp, sq = _pow2_scale(p), _pow2_scale(q)
+        _, _, _, r, _ = _residual(z, -(p * sp), q * sq, "dd")
+        return (r / sp) / sq
+    _, _, _, r, _ = _residual(z, -p, q, mode)
+    return np.asarray(r, dtype=np.float64)
+
+
+def _norm1(x) -> float:
+    """Matrix 1-norm (max column sum), evaluated in x's own (possibly wide) type."""
+    if x.size == 0:
+        return 0.0
+    return np.max(np.sum(np.abs(x), axis=0))
+
+
+# ---------------------------------------------------------------------------
+# Metrics
+# ---------------------------------------------------------------------------
+
+def factor_ratio(a, lu, ipiv=None) -> float:
+    """LAPACK dget01 ratio ||P A - L U||_1 / (n ||A||_1 eps), eps = unit roundoff of lu.dtype."""
+    # LAPACK TESTING/LIN/dget01.f. dget01 compares P^T L U with A; the 1-norm is
+    # invariant under row permutation, so comparing P A with L U is the same number.
+    a = _as_float(a)
+    lu = _as_float(lu)
+    if a.shape != lu.shape or a.ndim != 2:
+        raise ValueError("a and lu must be 2-D of the same shape")
+    m, n = a.shape
+    if m == 0 or n == 0:
+        return 0.0
+    eps = unit_roundoff(lu.dtype)
+    L, U = unpack(lu)
+    mode = _work_mode(a.dtype, lu.dtype)
+    pa, _, _, r, _ = _residual(apply_swaps(a, ipiv), L, U, mode)
+    resid = _norm1(r)
+    anorm = _norm1(pa)
+    if anorm <= 0:
+        # dget01: ANORM <= 0 gives 1/EPS unless the residual is exactly zero.
+        return 0.0 if resid == 0 else 1.0 / eps
+    # Same evaluation order as dget01, which keeps near-overflow data finite.
+    return float(((resid / n) / anorm) / eps)
+
+
+def solve_ratio(a, x, b) -> float:
+    """LAPACK dget02 ratio max_j ||b_j - A x_j||_1 / (||A||_1 ||x_j||_1 eps), eps of x.dtype."""
+    # LAPACK TESTING/LIN/dget02.f (3.6.0), TRANS = 'N'.
+    a = _as_float(a)
+    x = _as_float(x)
+    b = _as_float(b)
+    if x.ndim == 1:
+        x = x[:, None]
+    if b.ndim == 1:
+        b = b[:, None]
+    m, n = a.shape
+    if x.shape[0] != n or b.shape != (m, x.shape[1]):
+        raise ValueError("shapes do not match A x = b")
+    nrhs = x.shape[1]
+    if m == 0 or n == 0 or nrhs == 0:
+        return 0.0
+    eps = unit_roundoff(x.dtype)
+    mode = _work_mode(a.dtype, x.dtype, b.dtype)
+    _, aw, xw, r, _ = _residual(b, a, x, mode)
+    anorm = _norm1(aw)
+    if anorm <= 0:
+        # dget02 exits with 1/EPS when ANORM = 0, whatever the residual.
+        return 1.0 / eps
+    resid = 0.0
+    for j in range(nrhs):
+        bnorm = np.sum(np.abs(r[:, j]))
+        xnorm = np.sum(np.abs(xw[:, j]))
+        if np.isnan(bnorm):
+            # Fortran MAX is silent about NaN; a NaN residual must not read as a pass.
+            return math.nan
+        if xnorm <= 0:
+            # dget02 assigns (not maxes) 1/EPS for a zero solution column.
+            resid = 1.0 / eps
+        else:
+            resid = max(resid, float(((bnorm / anorm) / xnorm) / eps))
+    return resid
+
+
+def componentwise_ratio(a, lu, ipiv=None) -> float:
+    """max_ij |P A - L U|_ij / (gamma_k (|L||U|)_ij), k = min(m, n); <= 1 is what theory allows."""
+    # Higham 2002, Thm 9.3: the computed factors of any GE ordering satisfy
+    # L U = A + dA with |dA| <= gamma_n |L||U| (no underflow assumed).
+    a = _as_float(a)
+    lu = _as_float(lu)
+    return _componentwise_ratio(a, lu, ipiv, _work_mode(a.dtype, lu.dtype))
+
+
+def _componentwise_ratio(a, lu, ipiv, mode) -> float:
+    a = _as_float(a)
+    lu = _as_float(lu)
+    if a.shape != lu.shape or a.ndim != 2:
+        raise ValueError("a and lu must be 2-D of the same shape")
+    k = min(a.shape)
+    if k == 0:
+        return 0.0
+    L, U = unpack(lu)
+    _, _, _, r, absprod = _residual(apply_swaps(a, ipiv), L, U, mode)
+    num = np.abs(r)
+    den = gamma(k, lu.dtype) * absprod
+    if np.isnan(num).any() or np.isnan(den).any():
+        return math.nan
+    with np.errstate(divide="ignore", invalid="ignore"):
+        q = np.where(den > 0, num / np.where(den > 0, den, 1), np.where(num > 0, np.inf, 0.0))
+    return float(np.max(q))
+
+
+# ---------------------------------------------------------------------------
+# LAPACK GE test matrices
+# ---------------------------------------------------------------------------
+
+def _rng(rng):
+    return rng if isinstance(rng, np.random.Generator) else np.random.default_rng(rng)
+
+
+def _dlatb4_constants(dtype):
+    """EPS, BADC1, BADC2, SMALL, LARGE exactly as dlatb4 forms them, in dtype's arithmetic."""
+    # LAPACK TESTING/LIN/dlatb4.f:
+    #   EPS = DLAMCH('Precision'); BADC2 = 0.1/EPS; BADC1 = SQRT(BADC2)
+    #   SMALL = SHRINK*(DLAMCH('Safe minimum')/EPS) with SHRINK = 0.25; LARGE = 1/SMALL
+    # LAPACK INSTALL/dlamch.f: 'P' = eps*radix (= finfo.eps), 'S' = TINY since
+    # 1/HUGE < TINY for IEEE formats.
+    f = np.finfo(dtype).dtype.type
+    eps = f(np.finfo(dtype).eps)
+    badc2 = f(0.1) / eps
+    badc1 = np.sqrt(badc2)
+    small = f(0.25) * (f(np.finfo(dtype).tiny) / eps)
+    large = f(1) / small
+    return float(eps), float(badc1), float(badc2), float(small), float(large)
+
+
+def _dlatb4_ge(imat, n, dtype):
+    """(kl, ku, anorm, cndnum) for path xGE, square n x n."""
+    # LAPACK TESTING/LIN/dlatb4.f, branch C2 = 'GE' (MODE = 3, DIST = 'S' throughout).
+    _, badc1, badc2, small, large = _dlatb4_constants(dtype)
+    if imat == 1:
+        kl, ku = 0, 0
+    elif imat == 2:
+        kl, ku = 0, max(n - 1, 0)
+    elif imat == 3:
+        kl, ku = max(n - 1, 0), 0
+    else:
+        kl, ku = max(n - 1, 0), max(n - 1, 0)
+    cnd = badc1 if imat == 8 else badc2 if imat == 9 else 2.0
+    anorm = small if imat == 10 else large if imat == 11 else 1.0
+    if n <= 1:
+        cnd = 1.0
+    return kl, ku, anorm, cnd
+
+
+def _haar_orthogonal(n, rng):
+    # QR of a Gaussian matrix with the signs of R's diagonal moved into Q gives
+    # Haar-distributed Q: Mezzadri, "How to generate random matrices from the classical
+    # compact groups", Notices AMS 54(5), 2007 (from memory).
+    z = rng.standard_normal((n, n))
+    q, r = np.linalg.qr(z)
+    s = np.sign(np.diag(r))
+    s[s == 0] = 1.0
+    return q * s
+
+
+def lapack_ge_matrix(imat, n, dtype, rng):
+    """Matrix type imat (1..11) of LAPACK's GE tests; returns (a, expected_info)."""
+    # LAPACK TESTING/LIN/dchkge.f (matrix set-up and zeroed columns), dlatb4.f
+    # (parameters), TESTING/MATGEN/dlatms.f and dlatm1.f (singular values).
+    dtype = _float_dtype(dtype)
+    rng = _rng(rng)
+    imat = int(imat)
+    n = int(n)
+    if not 1 <= imat <= 11:
+        raise ValueError("imat must be in 1..11")
+    if n < 0:
+        raise ValueError("n must be >= 0")
+    if 5 <= imat <= 7 and n < imat - 4:
+        # dchkge skips types 5, 6, 7 when N < IMAT-4: there is no such matrix.
+        raise ValueError(f"type {imat} needs n >= {imat - 4}")
+    if n == 0:
+        return np.zeros((0, 0), dtype=dtype), 0
+
+    kl, ku, anorm, cnd = _dlatb4_ge(imat, n, dtype)
+
+    # dlatm1 MODE = 3: D(1) = 1, D(I) = ALPHA**(I-1), ALPHA = COND**(-1/(N-1)).
+    # dlatms then scales D by DMAX/max|D(i)| (DMAX = ANORM), so ANORM is the 2-norm.
+    if n > 1:
+        alpha = cnd ** (-1.0 / (n - 1))
+        d = alpha ** np.arange(n, dtype=np.float64)
+    else:
+        d = np.ones(1)
+    d = d * (anorm / np.max(d))
+
+    if kl == 0 and ku == 0:
+        # dlatms/dlagge: a diagonal request is D itself (no random signs for SYM='N').
+        g = np.diag(d)
+    else:
+        u = _haar_orthogonal(n, rng)
+        v = _haar_orthogonal(n, rng)
+        ud = u * d  # column scaling: rounding here only perturbs U, multiplicatively
+        if dtype.itemsize >= 8 and np.finfo(np.longdouble).nmant >= 63:
+            # Forming U D V in a wider format leaves the final cast as the only
+            # rounding that can move the small singular values of types 8 and 9.
+            g = np.asarray(np.matmul(ud.astype(np.longdouble), v.astype(np.longdouble)),
+                           dtype=np.float64)
+        else:
+            g = ud @ v
+        if kl == 0:
+            # dlagge reduces the bandwidth with Householder transforms from the left
+            # (annihilating subdiagonals first when KL = 0): the R of a QR, whose
+            # singular values are still D.
+            g = np.triu(np.linalg.qr(g, mode="r"))
+        elif ku == 0:
+            g = np.tril(np.linalg.qr(g.T, mode="r").T)
+
+    info = 0
+    if 5 <= imat <= 7:
+        # dchkge: IZERO = 1, MIN(M,N), or MIN(M,N)/2+1 (1-based); type 7 zeroes
+        # columns IZERO..N, the others only column IZERO. getrf must return IZERO.
+        izero = 1 if imat == 5 else n if imat == 6 else n // 2 + 1
+        if imat < 7:
+            g[:, izero - 1] = 0.0
+        else:
+            g[:, izero - 1:] = 0.0
+        info = izero
+    return g.astype(dtype), info
+
+
+# ---------------------------------------------------------------------------
+# Matrices with known factors or known elimination behaviour
+# ---------------------------------------------------------------------------
+
+def known_factors(n, dtype, rng):
+    """Random unit-lower L and well-conditioned upper U (both in dtype) and a = fl(L @ U)."""
+    dtype = _float_dtype(dtype)
+    rng = _rng(rng)
+    n = int(n)
+    # Multipliers bounded by 1/n (< 1) make partial pivoting choose the diagonal at
+    # every step, so getrf-style kernels should reproduce L and U themselves.
+    L = np.eye(n) + np.tril(rng.uniform(-1.0, 1.0, (n, n)), -1) / n
+    U = np.triu(rng.uniform(-1.0, 1.0, (n, n)), 1) / n
+    U += np.diag(rng.uniform(1.0, 2.0, n) * rng.choice([-1.0, 1.0], n))
+    # Cast the factors first so that they are exactly the returned ones; then form the
+    # product in a wide format and round once (bounded in factor_tolerance).
+    L = L.astype(dtype)
+    U = U.astype(dtype)
+    a = _accurate_product(L, U, _work_mode(dtype)).astype(dtype)
+    return a, L, U
+
+
+def factor_tolerance(L, U, dtype):
+    """(tolL, tolU): max-abs error bounds for factors recovered from the LU of known_factors' a.
+
+    Perturbation theory for LU: if L U + dA = (L + dL)(U + dU), write
+    G = L^{-1} dL (strictly lower) and H = dU U^{-1} (upper). Then exactly
+        X := L^{-1} dA U^{-1} = G + H + G H,
+    so G = stril(X - G H), H = triu(X - G H). Dropping G H gives the first-order result
+        |dL| <= |L| stril(|L^{-1}| E |U^{-1}|),   |dU| <= triu(|L^{-1}| E |U^{-1}|) |U|
+    for |dA| <= E: Stewart, "On the perturbation of LU, Cholesky, and QR factorizations",
+    SIAM J. Matrix Anal. Appl. 14(4), 1993; Sun, "Componentwise perturbation bounds for
+    some matrix decompositions", BIT 32, 1992 (both from memory).
+
+    E collects (i) the backward error of the computed factorization,
+    gamma_n |L^||U^| (Higham 2002, Thm 9.3), and (ii) the rounding of a = fl(L U) itself:
+    a wide-format product (error gamma_n^ext |L||U|) rounded once to dtype, i.e.
+    (u + gamma_n^ext (1 + u)) |L||U|.
+
+    The first-order bound is the leading term; the second-order remainder (G H, and
+    |L^||U^| = |L|(I + G)(I + H)|U| exceeding |L||U|) is kept by iterating the
+    entrywise majorants Gm >= |G|, Hm >= |H| to their fixed point
+        W = |L^{-1}| E(Gm, Hm) |U^{-1}| + Gm Hm,  Gm = stril(W),  Hm = triu(W),
+    starting from 0 (continuation from dA = 0; common practice). The iteration converges
+    to first order in one step; the limit is accepted only once it is a supersolution.
+    """
+    dtype = _float_dtype(dtype)
+    L = np.asarray(L, dtype=np.float64)
+    U = np.asarray(U, dtype=np.float64)
+    n = L.shape[0]
+    if n == 0:
+        return 0.0, 0.0
+    u = unit_roundoff(dtype)
+    u_ext = _ext_unit_roundoff(_work_mode(dtype))
+    g_ext = n * u_ext / (1.0 - n * u_ext)  # Higham 2002, eq. (3.8), in the wide format
+    g_n = gamma(n, dtype)
+    aL, aU = np.abs(L), np.abs(U)
+    iL, iU = np.abs(np.linalg.inv(L)), np.abs(np.linalg.inv(U))
+    E_round = (u + g_ext * (1.0 + u)) * (aL @ aU)
+    eye = np.eye(n)
+
+    def step(Gm, Hm):
+        E = g_n * (aL @ (eye + Gm) @ (eye + Hm) @ aU) + E_round
+        W = iL @ E @ iU + Gm @ Hm
+        return np.tril(W, -1), np.triu(W)
+
+    Gm = np.zeros((n, n))
+    Hm = np.zeros((n, n))
+    for _ in range(60):
+        G2, H2 = step(Gm, Hm)
+        done = np.array_equal(G2, Gm) and np.array_equal(H2, Hm)
+        Gm, Hm = G2, H2
+        if done:
+            break
+    # A hair above the limit must map below itself; otherwise the perturbation is too
+    # large for any bound of this kind (the remainder would not be second order).
+    bump = 1.0 + 2.0 ** -20
+    Gs, Hs = Gm * bump, Hm * bump
+    G2, H2 = step(Gs, Hs)
+    if not (np.all(G2 <= Gs) and np.all(H2 <= Hs)) or not np.all(np.isfinite(Gs)):
+        raise ValueError("perturbation bound does not close: factors too ill-conditioned")
+    tolL = aL @ Gs
+    tolU = Hs @ aU
+    return float(np.max(tolL)), float(np.max(tolU))
+
+
+def column_dominant(n, dtype, rng) -> np.ndarray:
+    """Strictly column diagonally dominant matrix: partial pivoting makes no interchanges."""
+    # A matrix diagonally dominant by columns has GEPP choose the diagonal at every
+    # step and growth factor <= 2: Higham 2002, Thm 9.9 (from memory); Wilkinson (1961).
+    # Elimination never shrinks a column's dominance margin (common practice), so a
+    # margin >= 1 on O(1) entries survives both the cast and the rounding errors.
+    dtype = _float_dtype(dtype)
+    rng = _rng(rng)
+    n = int(n)
+    a = rng.uniform(-1.0, 1.0, (n, n))
+    np.fill_diagonal(a, 0.0)
+    margin = 1.0 + rng.uniform(0.0, 1.0, n)
+    diag = (np.sum(np.abs(a), axis=0) + margin) * rng.choice([-1.0, 1.0], n)
+    np.fill_diagonal(a, diag)
+    return a.astype(dtype)
+
+
+def _check_exact_integers(x, what):
+    if x.size and int(np.max(x)) > 2 ** 53:
+        raise ValueError(f"{what} entries exceed 2**53 and are not exact in float64")
+
+
+def pascal_symmetric(n) -> np.ndarray:
+    """Symmetric Pascal matrix S_ij = C(i+j, i), 0-based, as float64 integers."""
+    # Edelman & Strang, "Pascal Matrices", Amer. Math. Monthly 111(3), 2004.
+    n = int(n)
+    s = np.array([[math.comb(i + j, i) for j in range(n)] for i in range(n)], dtype=object)
+    _check_exact_integers(s, "pascal_symmetric")
+    return s.astype(np.float64).reshape(n, n)
+
+
+def pascal_lower(n) -> np.ndarray:
+    """Lower-triangular Pascal matrix L_ij = C(i, j), with S = L L^T."""
+    # Edelman & Strang, "Pascal Matrices", Amer. Math. Monthly 111(3), 2004.
+    n = int(n)
+    low = np.array([[math.comb(i, j) for j in range(n)] for i in range(n)], dtype=object)
+    _check_exact_integers(low, "pascal_lower")
+    return low.astype(np.float64).reshape(n, n)
+
+
+def wilkinson_growth(n) -> np.ndarray:
+    """Unit diagonal, -1 strictly below, last column ones: GEPP growth 2**(n-1)."""
+    # Higham 2002, §9.4; Wilkinson, "Error analysis of direct methods of matrix
+    # inversion", J. ACM 8, 1961. Every candidate pivot ties at magnitude 1 and
+    # partial pivoting keeps the first (the diagonal), so no rows move and the last
+    # column doubles at each step: U[n-1, n-1] = 2**(n-1).
+    n = int(n)
+    a = np.eye(n) - np.tril(np.ones((n, n)), -1)
+    if n:
+        a[:, -1] = 1.0
+    return a
+
+
+def zero_pivot_matrix(n, k, dtype, rng) -> np.ndarray:
+    """Integer matrix whose unpivoted LU first meets an exact zero pivot at 0-based step k.
+
+    Built as L @ U with L unit lower (entries in {-1, 0, 1}) and U upper with entries in
+    {-1, 0, 1}, diagonal +-1 except U[k, k] = 0. The leading k principal minors are +-1,
+    so steps 0..k-1 reproduce L and U exactly and step k's pivot is U[k, k] = 0.
+    Every value any elimination ordering forms up to step k is a partial sum
+    a_ij - sum_{t in T} l_it u_tj, an integer of magnitude <= 2 (|L||U|)_ij <= 2n,
+    and every division is by +-1, so nothing is ever rounded.
+    """
+    dtype = _float_dtype(dtype)
+    rng = _rng(rng)
+    n, k = int(n), int(k)
+    if not 0 <= k < n:
+        raise ValueError("need 0 <= k < n")
+    L = np.eye(n, dtype=np.int64) + np.tril(rng.integers(-1, 2, (n, n)), -1)
+    U = np.triu(rng.integers(-1, 2, (n, n)), 1) + np.diag(rng.choice([-1, 1], n))
+    U[k, k] = 0
+    bound = 2 * int(np.max(np.abs(L) @ np.abs(U)))
+    if bound >= 2 ** (np.finfo(dtype).nmant + 1):
+        raise ValueError(f"n = {n} too large for exact intermediates in {dtype}")
+    return (L @ U).astype(dtype)
