@@ -2,6 +2,7 @@
 whole catalogue atomically. Nothing here decides what the code does; it only arranges the printed parts."""
 from __future__ import annotations
 
+import functools
 import os
 import tempfile
 from dataclasses import dataclass
@@ -22,6 +23,7 @@ from .targets import LAYOUTS, SCALARS
 TEMPLATES = Path(__file__).resolve().parent / "templates"
 
 
+@functools.lru_cache(maxsize=1)
 def _environment() -> jinja2.Environment:
     # an installed package carries the templates inside it; a source checkout keeps them at the top level
     here = TEMPLATES if TEMPLATES.is_dir() else Path(__file__).resolve().parent.parent / "templates"
