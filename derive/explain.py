@@ -5,7 +5,7 @@ from __future__ import annotations
 from .derivation import THREE_WAY, Derivation, pivoting_supported
 from .invariants import (TWO_WAY, Invariant, block_label, content_of, content_text, enumerate_invariants,
                          equation_text, use_label)
-from .lower import gemm_shape, lower_derivation_for_display
+from .lower import Frame, display_shapes, gemm_shape, lower_derivation_for_display
 from .operation import Operation
 from .printing import dump_stmt
 
@@ -62,11 +62,8 @@ def _update_line(d: Derivation, u) -> str:
 def _unblocked_word(d: Derivation, u) -> str:
     """What an update becomes when the block size is 1."""
     if u.kind == "gemm":
-        from .lower import Frame, Shapes
         step_frame = Frame(d.operation, 1)
-        shapes = (Shapes({d.operation.target: ("a", "n", "n")}) if d.operation.rank == 2 else
-                  Shapes({d.operation.target: ("b", "n", "nrhs"), **{m: ("lu", "n", "n")
-                                                                   for m in d.operation.inputs}}))
+        shapes = display_shapes(d.operation)
         c = shapes.block(step_frame, d.operation.target, u.targets[0])
         a = shapes.block(step_frame, u.reads[0].matrix, u.reads[0].index)
         return {"dot": "dot product", "gemv_n": "GEMV", "gemv_t": "GEMV (transposed)", "ger": "rank-1 update",

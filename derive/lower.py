@@ -9,6 +9,7 @@ from .ir import (Block, Call, FactorCall, Gemm, Kernel, Lin, Loop, Param, PivotC
                  Routine, Scale, Span, Trsm, lin)
 from .operation import Operation
 from .options import KernelOptions
+from .printing import show_span
 
 K = "k"
 KB = "kb"
@@ -110,15 +111,21 @@ def invariant_text(op: Operation, words: tuple[str, ...], label: str) -> str:
     return f"{label}: " + "; ".join(parts)
 
 
-def partition_text(op: Operation, frame: Frame, extent: str) -> str:
-    from .printing import show_span
-    return ", ".join(f"{p}: {show_span(frame.span(p, extent))}" for p in THREE_WAY)
+def partition_text(op: Operation, frame: Frame, rows: str, cols: str) -> str:
+    """Index ranges of positions 0 (processed), 1 (current) and 2 (remaining), by rows and, if they differ,
+    by columns."""
+    def ranges(extent: str) -> str:
+        return ", ".join(f"{p}: {show_span(frame.span(p, extent))}" for p in THREE_WAY)
+    if op.rank == 1 or rows == cols:
+        return ranges(rows)
+    return f"rows {ranges(rows)}; columns {ranges(cols)}"
 
 
 def lower_loop(d: Derivation, step: int, shapes: Shapes, extent: str, inner: str | None, label: str) -> Loop:
     op = d.operation
     body = lower_updates(d, step, shapes, inner)
-    part = partition_text(op, Frame(op, step), extent)
+    _, rows, cols = shapes.args[op.target]
+    part = partition_text(op, Frame(op, step), rows, cols)
     return Loop(K, lin(extent), step, body, invariant_text(op, d.invariant.words, label), part)
 
 
@@ -169,11 +176,14 @@ def lower_kernel(o: KernelOptions) -> Kernel:
     return Kernel(o.name, tuple(routines))
 
 
-def lower_derivation_for_display(d: Derivation, step: int) -> Loop:
-    """The loop of one derivation alone, with generic argument names (for `luforge derive --ir`)."""
-    op = d.operation
+def display_shapes(op: Operation) -> Shapes:
+    """Generic argument names for showing one operation's loop alone (`luforge derive`)."""
     if op.rank == 2:
-        shapes = Shapes({op.target: ("a", "n", "n")})
-    else:
-        shapes = Shapes({op.target: ("b", "n", "nrhs"), **{m: ("lu", "n", "n") for m in op.inputs}})
-    return lower_loop(d, step, shapes, "n", "inner" if step > 1 else None, d.invariant.label)
+        return Shapes({op.target: ("a", "n", "n")})
+    return Shapes({op.target: ("b", "n", "nrhs"), **{m: ("lu", "n", "n") for m in op.inputs}})
+
+
+def lower_derivation_for_display(d: Derivation, step: int) -> Loop:
+    """The loop of one derivation alone (for `luforge derive --ir`)."""
+    return lower_loop(d, step, display_shapes(d.operation), "n", "inner" if step > 1 else None,
+                      d.invariant.label)

@@ -96,7 +96,7 @@ TIDE_BORD_B4_SRM_INTERNAL int tide_bord_b4_srm_inner(size_t m, size_t n, float *
 {
     size_t k;
     /* loop invariant, right-looking: A11 factored (holds L11\U11); A12 solved (holds U12); A21 solved (holds L21); A22 updated (holds A22 - L21 U12) */
-    /* partition at step k: 0: [0, k), 1: [k, k + 1), 2: [k + 1, n) */
+    /* partition at step k: rows 0: [0, k), 1: [k, k + 1), 2: [k + 1, m); columns 0: [0, k), 1: [k, k + 1), 2: [k + 1, n) */
     for (k = 0; k < n; ++k) {
         /* exactly zero pivot: stop before dividing by it (A11 = L10 U01 + L11 U11) */
         if (TIDE_BORD_B4_SRM_AT(a, lda, k, k) == 0.0f) return (int)(k) + 1;

@@ -140,7 +140,7 @@ def _inner(a):
     m = a.shape[0]
     n = a.shape[1]
     # loop invariant, crout: A11 factored (holds L11\U11); A12 solved (holds U12); A21 solved (holds L21); A22 input (holds A22)
-    # partition at step k: 0: [0, k), 1: [k, k + 1), 2: [k + 1, n)
+    # partition at step k: rows 0: [0, k), 1: [k, k + 1), 2: [k + 1, m); columns 0: [0, k), 1: [k, k + 1), 2: [k + 1, n)
     for k in range(n):
         kb = 1
         # dot: from A11 = L10 U01 + L11 U11

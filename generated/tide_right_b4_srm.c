@@ -119,7 +119,7 @@ TIDE_RIGHT_B4_SRM_INTERNAL int tide_right_b4_srm_inner(size_t m, size_t n, float
 {
     size_t k;
     /* loop invariant, crout: A11 factored (holds L11\U11); A12 solved (holds U12); A21 solved (holds L21); A22 input (holds A22) */
-    /* partition at step k: 0: [0, k), 1: [k, k + 1), 2: [k + 1, n) */
+    /* partition at step k: rows 0: [0, k), 1: [k, k + 1), 2: [k + 1, m); columns 0: [0, k), 1: [k, k + 1), 2: [k + 1, n) */
     for (k = 0; k < n; ++k) {
         /* dot: from A11 = L10 U01 + L11 U11 */
         if (k != 0) tide_right_b4_srm_dot(k, &TIDE_RIGHT_B4_SRM_AT(a, lda, k, 0), lda, &TIDE_RIGHT_B4_SRM_AT(a, lda, 0, k), lda, &TIDE_RIGHT_B4_SRM_AT(a, lda, k, k), lda);
