@@ -85,7 +85,11 @@ def cmd_generate(args) -> int:
     files: list[tuple[str, str]] = []
     for o in options:
         files += list(emit_kernel(o).files)   # everything is rendered before anything is written
-    written = write_atomically(out, files)
+    try:
+        written = write_atomically(out, files)
+    except OSError as e:
+        print(f"luforge: cannot write to {out}: {e.strerror or e}; nothing was replaced", file=sys.stderr)
+        return 1
     for p in written:
         print(p)
     return 0

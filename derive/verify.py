@@ -106,7 +106,8 @@ def column_dominant(n: int, rng, dtype) -> np.ndarray:
 @dataclass
 class Row:
     name: str
-    sizes: int
+    sizes: list[int]
+    matrices: int
     worst_factor: float
     worst_componentwise: float
     worst_solve: float
@@ -159,7 +160,7 @@ def check_kernel(ck: CKernel, py, o: KernelOptions, rng, per_size: int = 2) -> R
         problems.append(f"componentwise backward error {wc:.3g} x gamma_n")
     if ws >= THRESHOLD:
         problems.append(f"solve ratio {ws:.3g} >= {THRESHOLD}")
-    return Row(o.name, len(sizes) * per_size, wf, wc, ws, problems)
+    return Row(o.name, sizes, len(sizes) * per_size, wf, wc, ws, problems)
 
 
 def verify(options: list[KernelOptions], seed: int = 20261202, per_size: int = 2) -> list[Row]:
@@ -178,13 +179,13 @@ def verify(options: list[KernelOptions], seed: int = 20261202, per_size: int = 2
 
 
 def table(rows: list[Row]) -> str:
-    head = ("kernel", "matrices", "worst factor ratio", "worst |PA-LU|/(gamma_n|L||U|)", "worst solve ratio",
+    head = ("kernel", "sizes tried", "matrices", "worst factor ratio", "worst |PA-LU|/(gamma_n|L||U|)", "worst solve ratio",
             "result")
-    body = [(r.name, str(r.sizes), f"{r.worst_factor:.3f}", f"{r.worst_componentwise:.3f}",
+    body = [(r.name, f"{len(r.sizes)}: n = {r.sizes[0]}..{r.sizes[-1]}", str(r.matrices), f"{r.worst_factor:.3f}", f"{r.worst_componentwise:.3f}",
              f"{r.worst_solve:.3f}", "pass" if r.passed else "FAIL") for r in rows]
     widths = [max(len(x) for x in col) for col in zip(head, *body)]
     fmt = "  ".join(f"{{:<{w}}}" for w in widths)
-    out = [fmt.format(*head), fmt.format(*("-" * w for w in widths))] + [fmt.format(*b) for b in body]
+    out = [fmt.format(*row).rstrip() for row in (head, tuple("-" * w for w in widths), *body)]
     for r in rows:
         for p in r.problems:
             out.append(f"{r.name}: {p}")

@@ -16,6 +16,9 @@ ROOT = Path(__file__).resolve().parent.parent
 GEN = ROOT / "generated"
 SPEC = GEN / "kernels.toml"
 STRICT = ["-std=c99", "-Wall", "-Wextra", "-Werror", "-pedantic"]
+# what firmware builds commonly add (common practice): implicit conversions, float promoted to double, ...
+FIRMWARE = ["-Wconversion", "-Wsign-conversion", "-Wdouble-promotion", "-Wshadow", "-Wcast-qual",
+            "-Wstrict-prototypes", "-Wmissing-prototypes", "-Wundef", "-Wcast-align"]
 OPTIONS = load(SPEC)
 
 
@@ -34,10 +37,10 @@ def test_strict_c99_compiles(cc, tmp_path):
     if shutil.which(cc) is None:
         pytest.skip(f"{cc} is not installed here")
     for c in sorted(GEN.glob("*.c")):
-        for opt in ("-O0", "-O2"):
-            res = subprocess.run([cc, *STRICT, opt, "-c", str(c), "-o", str(tmp_path / "x.o")],
+        for flags in (["-O0"], ["-O2"], ["-Os", *FIRMWARE]):
+            res = subprocess.run([cc, *STRICT, *flags, "-c", str(c), "-o", str(tmp_path / "x.o")],
                                  capture_output=True, text=True)
-            assert res.returncode == 0, f"{c.name} ({cc} {opt}):\n{res.stderr}"
+            assert res.returncode == 0, f"{c.name} ({cc} {' '.join(flags)}):\n{res.stderr}"
 
 
 def test_headers_work_from_cplusplus(tmp_path):
