@@ -211,4 +211,11 @@ class CPrinter:
             else:
                 rows = ext[r.matrices[0][0]][0]
                 out.append(f"    if ({p.name} == NULL && {rows} > 0) return -{pos};")
+                if p.kind == "const_pivots":
+                    # pivots handed back in: an entry out of range would make the solve write outside b
+                    out += [f"    {{",
+                            f"        int i;",
+                            f"        for (i = 0; i < {rows}; ++i)",
+                            f"            if ({p.name}[i] < 0 || {p.name}[i] >= {rows}) return -{pos};",
+                            f"    }}"]
         return out

@@ -94,7 +94,7 @@ def emit_kernel(o: KernelOptions) -> Emitted:
         invariant_map=repr(inv.as_dict(operation.LU)), invariant_terms=_pyrepr(invariant_data(o.invariant)),
         **common)
     return Emitted(o, ((f"{o.name}.c", _tidy(c_text)), (f"{o.name}.h", _tidy(h_text)),
-                       (f"{o.name}.py", _tidy(py_text))))
+                       (f"{o.name}.py", _tidy(py_text, blanks=2))))
 
 
 def _params(signature: str) -> str:
@@ -106,13 +106,13 @@ def _pyrepr(data) -> str:
     return pprint.pformat(data, width=110, sort_dicts=False)
 
 
-def _tidy(text: str) -> str:
-    """One trailing newline, no trailing blanks, at most one blank line in a row."""
+def _tidy(text: str, blanks: int = 1) -> str:
+    """One trailing newline, no trailing blanks, at most `blanks` blank lines in a row."""
     out, blank = [], 0
     for line in text.rstrip().splitlines():
         line = line.rstrip()
         blank = blank + 1 if not line else 0
-        if blank <= 1:
+        if blank <= blanks:
             out.append(line)
     return "\n".join(out) + "\n"
 

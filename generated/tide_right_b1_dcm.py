@@ -46,10 +46,12 @@ _INVARIANT_TERMS = [{'region': 'A11',
   'kind': 'remainder',
   'terms': [[('L', [2, 1]), ('U', [1, 2])]]}]
 
+
 def _trsm_llu(l, b):
     """b := L^-1 b, L the unit lower triangle of the square block l (TRSM)."""
     for p in range(l.shape[0]):
         b[p + 1:, :] -= np.multiply.outer(l[p + 1:, p], b[p, :])
+
 
 def _trsm_lun(u, b):
     """b := U^-1 b, U the upper triangle of the square block u (TRSM)."""
@@ -57,11 +59,13 @@ def _trsm_lun(u, b):
         b[p, :] /= u[p, p]
         b[:p, :] -= np.multiply.outer(u[:p, p], b[p, :])
 
+
 def _trsm_run(u, b):
     """b := b U^-1, U the upper triangle of the square block u (TRSM from the right)."""
     for j in range(u.shape[0]):
         b[:, j] -= b[:, :j] @ u[:j, j]
         b[:, j] /= u[j, j]
+
 
 def _swaps(a, ipiv, k1, k2):
     """For steps i = k1 .. k2-1 in order, exchange rows i and ipiv[i] of a."""
@@ -69,6 +73,7 @@ def _swaps(a, ipiv, k1, k2):
         p = int(ipiv[i])
         if p != i:
             a[[i, p], :] = a[[p, i], :]
+
 
 def _pivot(col, k, ipiv):
     """Partial pivoting on one column (diagonal entry first): the first entry of largest magnitude, as the C
@@ -85,6 +90,7 @@ def _pivot(col, k, ipiv):
         return True
     col[1:] /= col[0]
     return False
+
 
 def _checker(a, a0, ipiv):
     """Assert the loop invariant at boundary k: componentwise within gamma_n of the products it names,
@@ -132,12 +138,14 @@ def _checker(a, a0, ipiv):
                                      f"{float(np.max(resid - gamma * bound)):.3g} beyond the rounding bound")
     return check
 
+
 def _square(a):
     if not isinstance(a, np.ndarray) or a.ndim != 2 or a.shape[0] != a.shape[1]:
         raise ValueError(f"a must be a square 2-D numpy array, got {getattr(a, 'shape', type(a).__name__)}")
     if a.dtype != SCALAR:
         raise TypeError(f"a must have dtype {np.dtype(SCALAR).name} for this kernel, got {a.dtype}")
     return a
+
 
 def _factor(a, check):
     """LU factorization"""
@@ -157,6 +165,7 @@ def _factor(a, check):
             check(k + kb)
     return 0
 
+
 def _lower(lu, b):
     """X = L^-1 B with L the unit lower triangular factor of a packed LU, B overwritten by X"""
     n = lu.shape[0]
@@ -168,6 +177,7 @@ def _lower(lu, b):
         # ger: from B2 = L20 X0 + L21 X1 + L22 X2
         b[k + 1:n, 0:nrhs] -= lu[k + 1:n, k:k + 1] @ b[k:k + 1, 0:nrhs]
     return 0
+
 
 def _upper(lu, b):
     """X = U^-1 B with U the upper triangular factor of a packed LU, B overwritten by X"""
@@ -183,6 +193,7 @@ def _upper(lu, b):
         b[0:n - k - 1, 0:nrhs] -= lu[0:n - k - 1, n - k - 1:n - k] @ b[n - k - 1:n - k, 0:nrhs]
     return 0
 
+
 def _solve(lu, b):
     """solve A X = B with the factorization"""
     n = lu.shape[0]
@@ -193,11 +204,13 @@ def _solve(lu, b):
     _upper(lu, b)
     return 0
 
+
 def factor(a, check_invariant=False):
     """LU factorization in place; see the module docstring."""
     _square(a)
     check = _checker(a, a.copy(), None) if check_invariant else None
     return _factor(a, check)
+
 
 def solve(lu, b):
     """Overwrite b with the solution of A x = b; see the module docstring."""

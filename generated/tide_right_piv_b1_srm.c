@@ -160,6 +160,11 @@ int tide_right_piv_b1_srm_solve(int n, int nrhs, const float *lu, int lda, const
     if (lu == NULL && n > 0) return -3;
     if (lda < 1 || lda < n) return -4;
     if (ipiv == NULL && n > 0) return -5;
+    {
+        int i;
+        for (i = 0; i < n; ++i)
+            if (ipiv[i] < 0 || ipiv[i] >= n) return -5;
+    }
     if (b == NULL && n > 0 && nrhs > 0) return -6;
     if (ldb < 1 || ldb < nrhs) return -7;
     const size_t N = (size_t)n;

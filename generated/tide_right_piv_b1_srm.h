@@ -40,7 +40,8 @@ int tide_right_piv_b1_srm(int n, float *a, int lda, int *ipiv);
  * with the solution X of A X = B, using lu and ipiv from tide_right_piv_b1_srm. No workspace.
  * Forward solve: inner-product; backward solve: inner-product; both blocked by 1 rows.
  * Returns 0, or minus the position of the first bad argument: -1 n < 0, -2 nrhs < 0, -3 lu NULL while n > 0,
- * -4 lda < max(1, n), -5 ipiv NULL while n > 0, -6 b NULL while n, nrhs > 0, -7 bad ldb.
+ * -4 lda < max(1, n), -5 ipiv NULL while n > 0 or an entry outside 0..n-1,
+ * -6 b NULL while n, nrhs > 0, -7 bad ldb.
  * A singular U (a factor code k+1) gives Inf or NaN in X; check the factor's return code first.
  * lu, ipiv and b must not overlap.
  */

@@ -47,10 +47,12 @@ _INVARIANT_TERMS = [{'region': 'A11',
   'kind': 'remainder',
   'terms': [[('L', [2, 1]), ('U', [1, 2])]]}]
 
+
 def _trsm_llu(l, b):
     """b := L^-1 b, L the unit lower triangle of the square block l (TRSM)."""
     for p in range(l.shape[0]):
         b[p + 1:, :] -= np.multiply.outer(l[p + 1:, p], b[p, :])
+
 
 def _trsm_lun(u, b):
     """b := U^-1 b, U the upper triangle of the square block u (TRSM)."""
@@ -58,11 +60,13 @@ def _trsm_lun(u, b):
         b[p, :] /= u[p, p]
         b[:p, :] -= np.multiply.outer(u[:p, p], b[p, :])
 
+
 def _trsm_run(u, b):
     """b := b U^-1, U the upper triangle of the square block u (TRSM from the right)."""
     for j in range(u.shape[0]):
         b[:, j] -= b[:, :j] @ u[:j, j]
         b[:, j] /= u[j, j]
+
 
 def _swaps(a, ipiv, k1, k2):
     """For steps i = k1 .. k2-1 in order, exchange rows i and ipiv[i] of a."""
@@ -70,6 +74,7 @@ def _swaps(a, ipiv, k1, k2):
         p = int(ipiv[i])
         if p != i:
             a[[i, p], :] = a[[p, i], :]
+
 
 def _pivot(col, k, ipiv):
     """Partial pivoting on one column (diagonal entry first): the first entry of largest magnitude, as the C
@@ -86,6 +91,7 @@ def _pivot(col, k, ipiv):
         return True
     col[1:] /= col[0]
     return False
+
 
 def _checker(a, a0, ipiv):
     """Assert the loop invariant at boundary k: componentwise within gamma_n of the products it names,
@@ -133,12 +139,14 @@ def _checker(a, a0, ipiv):
                                      f"{float(np.max(resid - gamma * bound)):.3g} beyond the rounding bound")
     return check
 
+
 def _square(a):
     if not isinstance(a, np.ndarray) or a.ndim != 2 or a.shape[0] != a.shape[1]:
         raise ValueError(f"a must be a square 2-D numpy array, got {getattr(a, 'shape', type(a).__name__)}")
     if a.dtype != SCALAR:
         raise TypeError(f"a must have dtype {np.dtype(SCALAR).name} for this kernel, got {a.dtype}")
     return a
+
 
 def _inner(a, ipiv):
     """unblocked crout LU of an m x n block (m >= n)"""
@@ -163,6 +171,7 @@ def _inner(a, ipiv):
         # gemv_t: from A12 = L10 U02 + L11 U12
         a[k:k + 1, k + 1:n] -= a[k:k + 1, 0:k] @ a[0:k, k + 1:n]
     return info
+
 
 def _factor(a, ipiv, check):
     """LU factorization"""
@@ -189,6 +198,7 @@ def _factor(a, ipiv, check):
             check(k + kb)
     return info
 
+
 def _lower(lu, b):
     """X = L^-1 B with L the unit lower triangular factor of a packed LU, B overwritten by X"""
     n = lu.shape[0]
@@ -202,6 +212,7 @@ def _lower(lu, b):
         # gemm: from B2 = L20 X0 + L21 X1 + L22 X2
         b[k + kb:n, 0:nrhs] -= lu[k + kb:n, k:k + kb] @ b[k:k + kb, 0:nrhs]
     return 0
+
 
 def _upper(lu, b):
     """X = U^-1 B with U the upper triangular factor of a packed LU, B overwritten by X"""
@@ -217,6 +228,7 @@ def _upper(lu, b):
         b[0:n - k - kb, 0:nrhs] -= lu[0:n - k - kb, n - k - kb:n - k] @ b[n - k - kb:n - k, 0:nrhs]
     return 0
 
+
 def _solve(lu, ipiv, b):
     """solve A X = B with the factorization"""
     n = lu.shape[0]
@@ -229,6 +241,7 @@ def _solve(lu, ipiv, b):
     _upper(lu, b)
     return 0
 
+
 def factor(a, check_invariant=False):
     """LU factorization in place; see the module docstring."""
     _square(a)
@@ -236,6 +249,7 @@ def factor(a, check_invariant=False):
     check = _checker(a, a.copy(), ipiv) if check_invariant else None
     info = _factor(a, ipiv, check)
     return info, ipiv
+
 
 def solve(lu, b, ipiv):
     """Overwrite b with the solution of A x = b; see the module docstring."""
@@ -246,7 +260,7 @@ def solve(lu, b, ipiv):
         raise TypeError(f"b must have dtype {np.dtype(SCALAR).name} for this kernel, got {b.dtype}")
     rhs = b[:, np.newaxis] if b.ndim == 1 else b
     ipiv = np.asarray(ipiv)
-    if ipiv.shape != (lu.shape[0],):
-        raise ValueError(f"ipiv must have {lu.shape[0]} entries")
+    if ipiv.shape != (lu.shape[0],) or not np.all((ipiv >= 0) & (ipiv < lu.shape[0])):
+        raise ValueError(f"ipiv must have {lu.shape[0]} entries, each from 0 to {lu.shape[0] - 1}")
     _solve(lu, ipiv, rhs)
     return b

@@ -38,10 +38,12 @@ _INVARIANT_TERMS = [{'region': 'A11',
  {'region': 'A21', 'state': 'input', 'position': [2, 1], 'kind': 'input', 'terms': []},
  {'region': 'A22', 'state': 'input', 'position': [2, 2], 'kind': 'input', 'terms': []}]
 
+
 def _trsm_llu(l, b):
     """b := L^-1 b, L the unit lower triangle of the square block l (TRSM)."""
     for p in range(l.shape[0]):
         b[p + 1:, :] -= np.multiply.outer(l[p + 1:, p], b[p, :])
+
 
 def _trsm_lun(u, b):
     """b := U^-1 b, U the upper triangle of the square block u (TRSM)."""
@@ -49,11 +51,13 @@ def _trsm_lun(u, b):
         b[p, :] /= u[p, p]
         b[:p, :] -= np.multiply.outer(u[:p, p], b[p, :])
 
+
 def _trsm_run(u, b):
     """b := b U^-1, U the upper triangle of the square block u (TRSM from the right)."""
     for j in range(u.shape[0]):
         b[:, j] -= b[:, :j] @ u[:j, j]
         b[:, j] /= u[j, j]
+
 
 def _swaps(a, ipiv, k1, k2):
     """For steps i = k1 .. k2-1 in order, exchange rows i and ipiv[i] of a."""
@@ -61,6 +65,7 @@ def _swaps(a, ipiv, k1, k2):
         p = int(ipiv[i])
         if p != i:
             a[[i, p], :] = a[[p, i], :]
+
 
 def _pivot(col, k, ipiv):
     """Partial pivoting on one column (diagonal entry first): the first entry of largest magnitude, as the C
@@ -77,6 +82,7 @@ def _pivot(col, k, ipiv):
         return True
     col[1:] /= col[0]
     return False
+
 
 def _checker(a, a0, ipiv):
     """Assert the loop invariant at boundary k: componentwise within gamma_n of the products it names,
@@ -124,12 +130,14 @@ def _checker(a, a0, ipiv):
                                      f"{float(np.max(resid - gamma * bound)):.3g} beyond the rounding bound")
     return check
 
+
 def _square(a):
     if not isinstance(a, np.ndarray) or a.ndim != 2 or a.shape[0] != a.shape[1]:
         raise ValueError(f"a must be a square 2-D numpy array, got {getattr(a, 'shape', type(a).__name__)}")
     if a.dtype != SCALAR:
         raise TypeError(f"a must have dtype {np.dtype(SCALAR).name} for this kernel, got {a.dtype}")
     return a
+
 
 def _factor(a, check):
     """LU factorization"""
@@ -151,6 +159,7 @@ def _factor(a, check):
             check(k + kb)
     return 0
 
+
 def _lower(lu, b):
     """X = L^-1 B with L the unit lower triangular factor of a packed LU, B overwritten by X"""
     n = lu.shape[0]
@@ -162,6 +171,7 @@ def _lower(lu, b):
         # gemv_t: from B1 = L10 X0 + L11 X1
         b[k:k + 1, 0:nrhs] -= lu[k:k + 1, 0:k] @ b[0:k, 0:nrhs]
     return 0
+
 
 def _upper(lu, b):
     """X = U^-1 B with U the upper triangular factor of a packed LU, B overwritten by X"""
@@ -177,6 +187,7 @@ def _upper(lu, b):
         b[n - k - 1:n - k, 0:nrhs] /= lu[n - k - 1, n - k - 1]
     return 0
 
+
 def _solve(lu, b):
     """solve A X = B with the factorization"""
     n = lu.shape[0]
@@ -187,11 +198,13 @@ def _solve(lu, b):
     _upper(lu, b)
     return 0
 
+
 def factor(a, check_invariant=False):
     """LU factorization in place; see the module docstring."""
     _square(a)
     check = _checker(a, a.copy(), None) if check_invariant else None
     return _factor(a, check)
+
 
 def solve(lu, b):
     """Overwrite b with the solution of A x = b; see the module docstring."""

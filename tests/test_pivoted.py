@@ -203,3 +203,7 @@ def test_bad_arguments(pivoted, name):
     assert s(2, 3, cp, 2, cip, p, 2 if row else 1) == -7     # ldb >= max(1, n) or max(1, nrhs) row-major
     assert s(2, 0, cp, 2, cip, ffi.NULL, 2 if not row else 1) == 0
     assert not buf.any() and not piv.any()
+    for bad in (-1, 2):      # a corrupted pivot entry is refused before b is touched
+        piv[1] = bad
+        assert s(2, 1, cp, 2, cip, p, 2) == -5
+    assert not buf.any()
