@@ -79,7 +79,7 @@ def emit_kernel(o: KernelOptions) -> Emitted:
         (public if r.role in ("factor", "solve") else internal).append(entry)
     # internal routines are defined before use: the inner loop and the solves before the public functions
     helpers = [h for h in HELPER_ORDER if h in cp.needs]
-    at_index = layout.index.replace("(i)", "(i)").replace("(ld)", "(ld)")
+    at_index = layout.index
     c_text = env.get_template("c/kernel.c.j2").render(helpers=helpers, internal=internal, public=public,
                                                        at_index=at_index, **common)
     h_text = env.get_template("c/kernel.h.j2").render(

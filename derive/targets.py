@@ -11,6 +11,7 @@ class Layout:
     index: str          # C expression of the offset of element (i, j) with leading dimension ld
     leading: str        # which extent the leading dimension must cover: "rows" or "cols"
     describe: str
+    helpers: str        # template of the inner operations whose loop order suits this storage
 
 
 @dataclass(frozen=True, slots=True)
@@ -23,8 +24,10 @@ class Scalar:
 
 
 LAYOUTS = {
-    "column-major": Layout("column-major", "(i) + (j) * (ld)", "rows", "element (i, j) is a[i + j*lda]"),
-    "row-major": Layout("row-major", "(i) * (ld) + (j)", "cols", "element (i, j) is a[i*lda + j]"),
+    "column-major": Layout("column-major", "(i) + (j) * (ld)", "rows", "element (i, j) is a[i + j*lda]",
+                           "c/helpers_column_major.c.j2"),
+    "row-major": Layout("row-major", "(i) * (ld) + (j)", "cols", "element (i, j) is a[i*lda + j]",
+                        "c/helpers_row_major.c.j2"),
 }
 
 SCALARS = {

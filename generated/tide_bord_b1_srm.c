@@ -21,10 +21,9 @@ TIDE_BORD_B1_SRM_INTERNAL void tide_bord_b1_srm_gemv_t(size_t n, size_t k, const
                                 const float *restrict a, size_t lda, float *restrict y, size_t ldy)
 {
     size_t j, p;
-    for (j = 0; j < n; ++j) {
-        float s = 0;
-        for (p = 0; p < k; ++p) s += TIDE_BORD_B1_SRM_AT(x, ldx, 0, p) * TIDE_BORD_B1_SRM_AT(a, lda, p, j);
-        TIDE_BORD_B1_SRM_AT(y, ldy, 0, j) -= s;
+    for (p = 0; p < k; ++p) {
+        const float t = TIDE_BORD_B1_SRM_AT(x, ldx, 0, p);
+        for (j = 0; j < n; ++j) TIDE_BORD_B1_SRM_AT(y, ldy, 0, j) -= t * TIDE_BORD_B1_SRM_AT(a, lda, p, j);
     }
 }
 
@@ -43,8 +42,8 @@ TIDE_BORD_B1_SRM_INTERNAL void tide_bord_b1_srm_dot(size_t k, const float *restr
 TIDE_BORD_B1_SRM_INTERNAL void tide_bord_b1_srm_scal(size_t m, size_t n, float *restrict b, size_t ldb, float d)
 {
     size_t i, j;
-    for (j = 0; j < n; ++j)
-        for (i = 0; i < m; ++i) TIDE_BORD_B1_SRM_AT(b, ldb, i, j) /= d;
+    for (i = 0; i < m; ++i)
+        for (j = 0; j < n; ++j) TIDE_BORD_B1_SRM_AT(b, ldb, i, j) /= d;
 }
 
 /* B := L^-1 B with L m x m unit lower triangular (its strict lower part is read), B m x n (TRSM) */
@@ -52,10 +51,10 @@ TIDE_BORD_B1_SRM_INTERNAL void tide_bord_b1_srm_trsm_llu(size_t m, size_t n, con
                                   float *restrict b, size_t ldb)
 {
     size_t i, j, p;
-    for (j = 0; j < n; ++j) {
-        for (p = 0; p < m; ++p) {
-            const float t = TIDE_BORD_B1_SRM_AT(b, ldb, p, j);
-            for (i = p + 1; i < m; ++i) TIDE_BORD_B1_SRM_AT(b, ldb, i, j) -= TIDE_BORD_B1_SRM_AT(l, ldl, i, p) * t;
+    for (i = 1; i < m; ++i) {
+        for (p = 0; p < i; ++p) {
+            const float t = TIDE_BORD_B1_SRM_AT(l, ldl, i, p);
+            for (j = 0; j < n; ++j) TIDE_BORD_B1_SRM_AT(b, ldb, i, j) -= t * TIDE_BORD_B1_SRM_AT(b, ldb, p, j);
         }
     }
 }
@@ -65,13 +64,11 @@ TIDE_BORD_B1_SRM_INTERNAL void tide_bord_b1_srm_trsm_run(size_t m, size_t n, con
                                   float *restrict b, size_t ldb)
 {
     size_t i, j, p;
-    for (j = 0; j < n; ++j) {
-        const float d = TIDE_BORD_B1_SRM_AT(u, ldu, j, j);
-        for (p = 0; p < j; ++p) {
-            const float t = TIDE_BORD_B1_SRM_AT(u, ldu, p, j);
-            for (i = 0; i < m; ++i) TIDE_BORD_B1_SRM_AT(b, ldb, i, j) -= TIDE_BORD_B1_SRM_AT(b, ldb, i, p) * t;
+    for (i = 0; i < m; ++i) {
+        for (p = 0; p < n; ++p) {
+            const float t = (TIDE_BORD_B1_SRM_AT(b, ldb, i, p) /= TIDE_BORD_B1_SRM_AT(u, ldu, p, p));
+            for (j = p + 1; j < n; ++j) TIDE_BORD_B1_SRM_AT(b, ldb, i, j) -= t * TIDE_BORD_B1_SRM_AT(u, ldu, p, j);
         }
-        for (i = 0; i < m; ++i) TIDE_BORD_B1_SRM_AT(b, ldb, i, j) /= d;
     }
 }
 

@@ -21,10 +21,10 @@ TIDE_BORD_B4_SRM_INTERNAL void tide_bord_b4_srm_gemm(size_t m, size_t n, size_t 
                               const float *restrict b, size_t ldb, float *restrict c, size_t ldc)
 {
     size_t i, j, p;
-    for (j = 0; j < n; ++j) {
+    for (i = 0; i < m; ++i) {
         for (p = 0; p < k; ++p) {
-            const float t = TIDE_BORD_B4_SRM_AT(b, ldb, p, j);
-            for (i = 0; i < m; ++i) TIDE_BORD_B4_SRM_AT(c, ldc, i, j) -= TIDE_BORD_B4_SRM_AT(a, lda, i, p) * t;
+            const float t = TIDE_BORD_B4_SRM_AT(a, lda, i, p);
+            for (j = 0; j < n; ++j) TIDE_BORD_B4_SRM_AT(c, ldc, i, j) -= t * TIDE_BORD_B4_SRM_AT(b, ldb, p, j);
         }
     }
 }
@@ -34,9 +34,9 @@ TIDE_BORD_B4_SRM_INTERNAL void tide_bord_b4_srm_ger(size_t m, size_t n, const fl
                              const float *restrict y, size_t ldy, float *restrict a, size_t lda)
 {
     size_t i, j;
-    for (j = 0; j < n; ++j) {
-        const float t = TIDE_BORD_B4_SRM_AT(y, ldy, 0, j);
-        for (i = 0; i < m; ++i) TIDE_BORD_B4_SRM_AT(a, lda, i, j) -= TIDE_BORD_B4_SRM_AT(x, ldx, i, 0) * t;
+    for (i = 0; i < m; ++i) {
+        const float t = TIDE_BORD_B4_SRM_AT(x, ldx, i, 0);
+        for (j = 0; j < n; ++j) TIDE_BORD_B4_SRM_AT(a, lda, i, j) -= t * TIDE_BORD_B4_SRM_AT(y, ldy, 0, j);
     }
 }
 
@@ -44,8 +44,8 @@ TIDE_BORD_B4_SRM_INTERNAL void tide_bord_b4_srm_ger(size_t m, size_t n, const fl
 TIDE_BORD_B4_SRM_INTERNAL void tide_bord_b4_srm_scal(size_t m, size_t n, float *restrict b, size_t ldb, float d)
 {
     size_t i, j;
-    for (j = 0; j < n; ++j)
-        for (i = 0; i < m; ++i) TIDE_BORD_B4_SRM_AT(b, ldb, i, j) /= d;
+    for (i = 0; i < m; ++i)
+        for (j = 0; j < n; ++j) TIDE_BORD_B4_SRM_AT(b, ldb, i, j) /= d;
 }
 
 /* B := L^-1 B with L m x m unit lower triangular (its strict lower part is read), B m x n (TRSM) */
@@ -53,10 +53,10 @@ TIDE_BORD_B4_SRM_INTERNAL void tide_bord_b4_srm_trsm_llu(size_t m, size_t n, con
                                   float *restrict b, size_t ldb)
 {
     size_t i, j, p;
-    for (j = 0; j < n; ++j) {
-        for (p = 0; p < m; ++p) {
-            const float t = TIDE_BORD_B4_SRM_AT(b, ldb, p, j);
-            for (i = p + 1; i < m; ++i) TIDE_BORD_B4_SRM_AT(b, ldb, i, j) -= TIDE_BORD_B4_SRM_AT(l, ldl, i, p) * t;
+    for (i = 1; i < m; ++i) {
+        for (p = 0; p < i; ++p) {
+            const float t = TIDE_BORD_B4_SRM_AT(l, ldl, i, p);
+            for (j = 0; j < n; ++j) TIDE_BORD_B4_SRM_AT(b, ldb, i, j) -= t * TIDE_BORD_B4_SRM_AT(b, ldb, p, j);
         }
     }
 }
@@ -66,13 +66,13 @@ TIDE_BORD_B4_SRM_INTERNAL void tide_bord_b4_srm_trsm_lun(size_t m, size_t n, con
                                   float *restrict b, size_t ldb)
 {
     size_t i, j, p;
-    for (j = 0; j < n; ++j) {
-        for (p = m; p-- > 0;) {
-            float t;
-            TIDE_BORD_B4_SRM_AT(b, ldb, p, j) /= TIDE_BORD_B4_SRM_AT(u, ldu, p, p);
-            t = TIDE_BORD_B4_SRM_AT(b, ldb, p, j);
-            for (i = 0; i < p; ++i) TIDE_BORD_B4_SRM_AT(b, ldb, i, j) -= TIDE_BORD_B4_SRM_AT(u, ldu, i, p) * t;
+    for (i = m; i-- > 0;) {
+        const float d = TIDE_BORD_B4_SRM_AT(u, ldu, i, i);
+        for (p = i + 1; p < m; ++p) {
+            const float t = TIDE_BORD_B4_SRM_AT(u, ldu, i, p);
+            for (j = 0; j < n; ++j) TIDE_BORD_B4_SRM_AT(b, ldb, i, j) -= t * TIDE_BORD_B4_SRM_AT(b, ldb, p, j);
         }
+        for (j = 0; j < n; ++j) TIDE_BORD_B4_SRM_AT(b, ldb, i, j) /= d;
     }
 }
 
@@ -81,13 +81,11 @@ TIDE_BORD_B4_SRM_INTERNAL void tide_bord_b4_srm_trsm_run(size_t m, size_t n, con
                                   float *restrict b, size_t ldb)
 {
     size_t i, j, p;
-    for (j = 0; j < n; ++j) {
-        const float d = TIDE_BORD_B4_SRM_AT(u, ldu, j, j);
-        for (p = 0; p < j; ++p) {
-            const float t = TIDE_BORD_B4_SRM_AT(u, ldu, p, j);
-            for (i = 0; i < m; ++i) TIDE_BORD_B4_SRM_AT(b, ldb, i, j) -= TIDE_BORD_B4_SRM_AT(b, ldb, i, p) * t;
+    for (i = 0; i < m; ++i) {
+        for (p = 0; p < n; ++p) {
+            const float t = (TIDE_BORD_B4_SRM_AT(b, ldb, i, p) /= TIDE_BORD_B4_SRM_AT(u, ldu, p, p));
+            for (j = p + 1; j < n; ++j) TIDE_BORD_B4_SRM_AT(b, ldb, i, j) -= t * TIDE_BORD_B4_SRM_AT(u, ldu, p, j);
         }
-        for (i = 0; i < m; ++i) TIDE_BORD_B4_SRM_AT(b, ldb, i, j) /= d;
     }
 }
 

@@ -21,9 +21,10 @@ TIDE_CROUT_PIV_B1_SRM_INTERNAL void tide_crout_piv_b1_srm_gemv_n(size_t m, size_
                                 const float *restrict x, size_t ldx, float *restrict y, size_t ldy)
 {
     size_t i, p;
-    for (p = 0; p < k; ++p) {
-        const float t = TIDE_CROUT_PIV_B1_SRM_AT(x, ldx, p, 0);
-        for (i = 0; i < m; ++i) TIDE_CROUT_PIV_B1_SRM_AT(y, ldy, i, 0) -= TIDE_CROUT_PIV_B1_SRM_AT(a, lda, i, p) * t;
+    for (i = 0; i < m; ++i) {
+        float s = 0;
+        for (p = 0; p < k; ++p) s += TIDE_CROUT_PIV_B1_SRM_AT(a, lda, i, p) * TIDE_CROUT_PIV_B1_SRM_AT(x, ldx, p, 0);
+        TIDE_CROUT_PIV_B1_SRM_AT(y, ldy, i, 0) -= s;
     }
 }
 
@@ -32,10 +33,9 @@ TIDE_CROUT_PIV_B1_SRM_INTERNAL void tide_crout_piv_b1_srm_gemv_t(size_t n, size_
                                 const float *restrict a, size_t lda, float *restrict y, size_t ldy)
 {
     size_t j, p;
-    for (j = 0; j < n; ++j) {
-        float s = 0;
-        for (p = 0; p < k; ++p) s += TIDE_CROUT_PIV_B1_SRM_AT(x, ldx, 0, p) * TIDE_CROUT_PIV_B1_SRM_AT(a, lda, p, j);
-        TIDE_CROUT_PIV_B1_SRM_AT(y, ldy, 0, j) -= s;
+    for (p = 0; p < k; ++p) {
+        const float t = TIDE_CROUT_PIV_B1_SRM_AT(x, ldx, 0, p);
+        for (j = 0; j < n; ++j) TIDE_CROUT_PIV_B1_SRM_AT(y, ldy, 0, j) -= t * TIDE_CROUT_PIV_B1_SRM_AT(a, lda, p, j);
     }
 }
 
@@ -54,8 +54,8 @@ TIDE_CROUT_PIV_B1_SRM_INTERNAL void tide_crout_piv_b1_srm_dot(size_t k, const fl
 TIDE_CROUT_PIV_B1_SRM_INTERNAL void tide_crout_piv_b1_srm_scal(size_t m, size_t n, float *restrict b, size_t ldb, float d)
 {
     size_t i, j;
-    for (j = 0; j < n; ++j)
-        for (i = 0; i < m; ++i) TIDE_CROUT_PIV_B1_SRM_AT(b, ldb, i, j) /= d;
+    for (i = 0; i < m; ++i)
+        for (j = 0; j < n; ++j) TIDE_CROUT_PIV_B1_SRM_AT(b, ldb, i, j) /= d;
 }
 
 /* For steps i = k1 .. k2-1 in order, exchange rows i and ipiv[i] of the ncols columns starting at a */

@@ -21,10 +21,9 @@ TIDE_RIGHT_PIV_B1_SRM_INTERNAL void tide_right_piv_b1_srm_gemv_t(size_t n, size_
                                 const float *restrict a, size_t lda, float *restrict y, size_t ldy)
 {
     size_t j, p;
-    for (j = 0; j < n; ++j) {
-        float s = 0;
-        for (p = 0; p < k; ++p) s += TIDE_RIGHT_PIV_B1_SRM_AT(x, ldx, 0, p) * TIDE_RIGHT_PIV_B1_SRM_AT(a, lda, p, j);
-        TIDE_RIGHT_PIV_B1_SRM_AT(y, ldy, 0, j) -= s;
+    for (p = 0; p < k; ++p) {
+        const float t = TIDE_RIGHT_PIV_B1_SRM_AT(x, ldx, 0, p);
+        for (j = 0; j < n; ++j) TIDE_RIGHT_PIV_B1_SRM_AT(y, ldy, 0, j) -= t * TIDE_RIGHT_PIV_B1_SRM_AT(a, lda, p, j);
     }
 }
 
@@ -33,9 +32,9 @@ TIDE_RIGHT_PIV_B1_SRM_INTERNAL void tide_right_piv_b1_srm_ger(size_t m, size_t n
                              const float *restrict y, size_t ldy, float *restrict a, size_t lda)
 {
     size_t i, j;
-    for (j = 0; j < n; ++j) {
-        const float t = TIDE_RIGHT_PIV_B1_SRM_AT(y, ldy, 0, j);
-        for (i = 0; i < m; ++i) TIDE_RIGHT_PIV_B1_SRM_AT(a, lda, i, j) -= TIDE_RIGHT_PIV_B1_SRM_AT(x, ldx, i, 0) * t;
+    for (i = 0; i < m; ++i) {
+        const float t = TIDE_RIGHT_PIV_B1_SRM_AT(x, ldx, i, 0);
+        for (j = 0; j < n; ++j) TIDE_RIGHT_PIV_B1_SRM_AT(a, lda, i, j) -= t * TIDE_RIGHT_PIV_B1_SRM_AT(y, ldy, 0, j);
     }
 }
 
@@ -43,8 +42,8 @@ TIDE_RIGHT_PIV_B1_SRM_INTERNAL void tide_right_piv_b1_srm_ger(size_t m, size_t n
 TIDE_RIGHT_PIV_B1_SRM_INTERNAL void tide_right_piv_b1_srm_scal(size_t m, size_t n, float *restrict b, size_t ldb, float d)
 {
     size_t i, j;
-    for (j = 0; j < n; ++j)
-        for (i = 0; i < m; ++i) TIDE_RIGHT_PIV_B1_SRM_AT(b, ldb, i, j) /= d;
+    for (i = 0; i < m; ++i)
+        for (j = 0; j < n; ++j) TIDE_RIGHT_PIV_B1_SRM_AT(b, ldb, i, j) /= d;
 }
 
 /* For steps i = k1 .. k2-1 in order, exchange rows i and ipiv[i] of the ncols columns starting at a */

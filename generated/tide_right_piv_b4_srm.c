@@ -21,10 +21,10 @@ TIDE_RIGHT_PIV_B4_SRM_INTERNAL void tide_right_piv_b4_srm_gemm(size_t m, size_t 
                               const float *restrict b, size_t ldb, float *restrict c, size_t ldc)
 {
     size_t i, j, p;
-    for (j = 0; j < n; ++j) {
+    for (i = 0; i < m; ++i) {
         for (p = 0; p < k; ++p) {
-            const float t = TIDE_RIGHT_PIV_B4_SRM_AT(b, ldb, p, j);
-            for (i = 0; i < m; ++i) TIDE_RIGHT_PIV_B4_SRM_AT(c, ldc, i, j) -= TIDE_RIGHT_PIV_B4_SRM_AT(a, lda, i, p) * t;
+            const float t = TIDE_RIGHT_PIV_B4_SRM_AT(a, lda, i, p);
+            for (j = 0; j < n; ++j) TIDE_RIGHT_PIV_B4_SRM_AT(c, ldc, i, j) -= t * TIDE_RIGHT_PIV_B4_SRM_AT(b, ldb, p, j);
         }
     }
 }
@@ -34,9 +34,10 @@ TIDE_RIGHT_PIV_B4_SRM_INTERNAL void tide_right_piv_b4_srm_gemv_n(size_t m, size_
                                 const float *restrict x, size_t ldx, float *restrict y, size_t ldy)
 {
     size_t i, p;
-    for (p = 0; p < k; ++p) {
-        const float t = TIDE_RIGHT_PIV_B4_SRM_AT(x, ldx, p, 0);
-        for (i = 0; i < m; ++i) TIDE_RIGHT_PIV_B4_SRM_AT(y, ldy, i, 0) -= TIDE_RIGHT_PIV_B4_SRM_AT(a, lda, i, p) * t;
+    for (i = 0; i < m; ++i) {
+        float s = 0;
+        for (p = 0; p < k; ++p) s += TIDE_RIGHT_PIV_B4_SRM_AT(a, lda, i, p) * TIDE_RIGHT_PIV_B4_SRM_AT(x, ldx, p, 0);
+        TIDE_RIGHT_PIV_B4_SRM_AT(y, ldy, i, 0) -= s;
     }
 }
 
@@ -45,10 +46,9 @@ TIDE_RIGHT_PIV_B4_SRM_INTERNAL void tide_right_piv_b4_srm_gemv_t(size_t n, size_
                                 const float *restrict a, size_t lda, float *restrict y, size_t ldy)
 {
     size_t j, p;
-    for (j = 0; j < n; ++j) {
-        float s = 0;
-        for (p = 0; p < k; ++p) s += TIDE_RIGHT_PIV_B4_SRM_AT(x, ldx, 0, p) * TIDE_RIGHT_PIV_B4_SRM_AT(a, lda, p, j);
-        TIDE_RIGHT_PIV_B4_SRM_AT(y, ldy, 0, j) -= s;
+    for (p = 0; p < k; ++p) {
+        const float t = TIDE_RIGHT_PIV_B4_SRM_AT(x, ldx, 0, p);
+        for (j = 0; j < n; ++j) TIDE_RIGHT_PIV_B4_SRM_AT(y, ldy, 0, j) -= t * TIDE_RIGHT_PIV_B4_SRM_AT(a, lda, p, j);
     }
 }
 
@@ -67,8 +67,8 @@ TIDE_RIGHT_PIV_B4_SRM_INTERNAL void tide_right_piv_b4_srm_dot(size_t k, const fl
 TIDE_RIGHT_PIV_B4_SRM_INTERNAL void tide_right_piv_b4_srm_scal(size_t m, size_t n, float *restrict b, size_t ldb, float d)
 {
     size_t i, j;
-    for (j = 0; j < n; ++j)
-        for (i = 0; i < m; ++i) TIDE_RIGHT_PIV_B4_SRM_AT(b, ldb, i, j) /= d;
+    for (i = 0; i < m; ++i)
+        for (j = 0; j < n; ++j) TIDE_RIGHT_PIV_B4_SRM_AT(b, ldb, i, j) /= d;
 }
 
 /* B := L^-1 B with L m x m unit lower triangular (its strict lower part is read), B m x n (TRSM) */
@@ -76,10 +76,10 @@ TIDE_RIGHT_PIV_B4_SRM_INTERNAL void tide_right_piv_b4_srm_trsm_llu(size_t m, siz
                                   float *restrict b, size_t ldb)
 {
     size_t i, j, p;
-    for (j = 0; j < n; ++j) {
-        for (p = 0; p < m; ++p) {
-            const float t = TIDE_RIGHT_PIV_B4_SRM_AT(b, ldb, p, j);
-            for (i = p + 1; i < m; ++i) TIDE_RIGHT_PIV_B4_SRM_AT(b, ldb, i, j) -= TIDE_RIGHT_PIV_B4_SRM_AT(l, ldl, i, p) * t;
+    for (i = 1; i < m; ++i) {
+        for (p = 0; p < i; ++p) {
+            const float t = TIDE_RIGHT_PIV_B4_SRM_AT(l, ldl, i, p);
+            for (j = 0; j < n; ++j) TIDE_RIGHT_PIV_B4_SRM_AT(b, ldb, i, j) -= t * TIDE_RIGHT_PIV_B4_SRM_AT(b, ldb, p, j);
         }
     }
 }
@@ -89,13 +89,13 @@ TIDE_RIGHT_PIV_B4_SRM_INTERNAL void tide_right_piv_b4_srm_trsm_lun(size_t m, siz
                                   float *restrict b, size_t ldb)
 {
     size_t i, j, p;
-    for (j = 0; j < n; ++j) {
-        for (p = m; p-- > 0;) {
-            float t;
-            TIDE_RIGHT_PIV_B4_SRM_AT(b, ldb, p, j) /= TIDE_RIGHT_PIV_B4_SRM_AT(u, ldu, p, p);
-            t = TIDE_RIGHT_PIV_B4_SRM_AT(b, ldb, p, j);
-            for (i = 0; i < p; ++i) TIDE_RIGHT_PIV_B4_SRM_AT(b, ldb, i, j) -= TIDE_RIGHT_PIV_B4_SRM_AT(u, ldu, i, p) * t;
+    for (i = m; i-- > 0;) {
+        const float d = TIDE_RIGHT_PIV_B4_SRM_AT(u, ldu, i, i);
+        for (p = i + 1; p < m; ++p) {
+            const float t = TIDE_RIGHT_PIV_B4_SRM_AT(u, ldu, i, p);
+            for (j = 0; j < n; ++j) TIDE_RIGHT_PIV_B4_SRM_AT(b, ldb, i, j) -= t * TIDE_RIGHT_PIV_B4_SRM_AT(b, ldb, p, j);
         }
+        for (j = 0; j < n; ++j) TIDE_RIGHT_PIV_B4_SRM_AT(b, ldb, i, j) /= d;
     }
 }
 

@@ -21,10 +21,9 @@ TIDE_UP_B1_SRM_INTERNAL void tide_up_b1_srm_gemv_t(size_t n, size_t k, const flo
                                 const float *restrict a, size_t lda, float *restrict y, size_t ldy)
 {
     size_t j, p;
-    for (j = 0; j < n; ++j) {
-        float s = 0;
-        for (p = 0; p < k; ++p) s += TIDE_UP_B1_SRM_AT(x, ldx, 0, p) * TIDE_UP_B1_SRM_AT(a, lda, p, j);
-        TIDE_UP_B1_SRM_AT(y, ldy, 0, j) -= s;
+    for (p = 0; p < k; ++p) {
+        const float t = TIDE_UP_B1_SRM_AT(x, ldx, 0, p);
+        for (j = 0; j < n; ++j) TIDE_UP_B1_SRM_AT(y, ldy, 0, j) -= t * TIDE_UP_B1_SRM_AT(a, lda, p, j);
     }
 }
 
@@ -43,8 +42,8 @@ TIDE_UP_B1_SRM_INTERNAL void tide_up_b1_srm_dot(size_t k, const float *restrict 
 TIDE_UP_B1_SRM_INTERNAL void tide_up_b1_srm_scal(size_t m, size_t n, float *restrict b, size_t ldb, float d)
 {
     size_t i, j;
-    for (j = 0; j < n; ++j)
-        for (i = 0; i < m; ++i) TIDE_UP_B1_SRM_AT(b, ldb, i, j) /= d;
+    for (i = 0; i < m; ++i)
+        for (j = 0; j < n; ++j) TIDE_UP_B1_SRM_AT(b, ldb, i, j) /= d;
 }
 
 /* B := B U^-1 with B m x n, U n x n upper triangular (TRSM from the right) */
@@ -52,13 +51,11 @@ TIDE_UP_B1_SRM_INTERNAL void tide_up_b1_srm_trsm_run(size_t m, size_t n, const f
                                   float *restrict b, size_t ldb)
 {
     size_t i, j, p;
-    for (j = 0; j < n; ++j) {
-        const float d = TIDE_UP_B1_SRM_AT(u, ldu, j, j);
-        for (p = 0; p < j; ++p) {
-            const float t = TIDE_UP_B1_SRM_AT(u, ldu, p, j);
-            for (i = 0; i < m; ++i) TIDE_UP_B1_SRM_AT(b, ldb, i, j) -= TIDE_UP_B1_SRM_AT(b, ldb, i, p) * t;
+    for (i = 0; i < m; ++i) {
+        for (p = 0; p < n; ++p) {
+            const float t = (TIDE_UP_B1_SRM_AT(b, ldb, i, p) /= TIDE_UP_B1_SRM_AT(u, ldu, p, p));
+            for (j = p + 1; j < n; ++j) TIDE_UP_B1_SRM_AT(b, ldb, i, j) -= t * TIDE_UP_B1_SRM_AT(u, ldu, p, j);
         }
-        for (i = 0; i < m; ++i) TIDE_UP_B1_SRM_AT(b, ldb, i, j) /= d;
     }
 }
 

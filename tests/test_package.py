@@ -25,7 +25,8 @@ def wheel(tmp_path_factory):
 
 def test_wheel_carries_the_templates(wheel):
     names = zipfile.ZipFile(wheel).namelist()
-    for t in ("derive/templates/c/kernel.c.j2", "derive/templates/c/kernel.h.j2", "derive/templates/c/helpers.c.j2",
+    for t in ("derive/templates/c/kernel.c.j2", "derive/templates/c/kernel.h.j2", "derive/templates/c/helpers_column_major.c.j2",
+              "derive/templates/c/helpers_row_major.c.j2", "derive/templates/c/helpers_common.c.j2",
               "derive/templates/python/kernel.py.j2"):
         assert t in names
     assert any(n.endswith("entry_points.txt") for n in names)
