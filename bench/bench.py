@@ -29,19 +29,17 @@ def best_of(fn, repeat: int) -> float:
     return best
 
 
-def main() -> int:
-    options = [o for o in load(ROOT / "generated" / "kernels.toml")
-               if o.scalar == "double" and o.layout == "column-major" and o.pivoting == "partial"]
-    mod = build_directory(ROOT / "generated", [o.name for o in options])
-    ffi, lib = mod.ffi, mod.lib
-    rng = np.random.default_rng(1)
-    print("factor time per call (microseconds, best of 5) and Gflop/s; scipy = LAPACK dgetrf through scipy")
-    print(f"{'n':>5}  " + "  ".join(f"{o.name:>24}" for o in options) + f"  {'scipy dgetrf':>14}")
+def table(lib, ffi, options, scalar: str, rng) -> None:
+    ctype = "double" if scalar == "double" else "float"
+    dtype = np.float64 if scalar == "double" else np.float32
+    getrf = scipy.linalg.lapack.dgetrf if scalar == "double" else scipy.linalg.lapack.sgetrf
+    print(f"{'n':>5}  " + "  ".join(f"{o.name:>24}" for o in options) + f"  {'scipy ' + scalar[0].replace('f', 's') + 'getrf':>20}")
     for n in SIZES:
-        a0 = np.asfortranarray(rng.standard_normal((n, n)))
-        work = a0.copy(order="F")
+        a0 = rng.standard_normal((n, n)).astype(dtype)
+        order = "F" if options[0].layout == "column-major" else "C"
+        work = a0.copy(order=order)
         ipiv = np.zeros(n, dtype=np.intc)
-        pa, pp = ffi.cast("double *", work.ctypes.data), ffi.cast("int *", ipiv.ctypes.data)
+        pa, pp = ffi.cast(f"{ctype} *", work.ctypes.data), ffi.cast("int *", ipiv.ctypes.data)
         repeat = max(1, int(2e6 / max(lu_flops(n), 1)))
         row = []
         for o in options:
@@ -52,13 +50,26 @@ def main() -> int:
                 f(n, pa, n, pp)
             t = best_of(call, repeat)
             row.append(f"{t * 1e6:>10.2f} us {lu_flops(n) / t / 1e9:>6.2f} GF")
+        ref_work = np.asfortranarray(a0)
 
         def ref():
-            work[...] = a0
-            scipy.linalg.lapack.dgetrf(work, overwrite_a=1)
+            ref_work[...] = a0
+            getrf(ref_work, overwrite_a=1)
         t = best_of(ref, repeat)
-        print(f"{n:>5}  " + "  ".join(f"{r:>24}" for r in row) + f"  {t * 1e6:>8.2f} us {lu_flops(n) / t / 1e9:>5.2f}")
-    print("times include the copy of the input and the Python call (the same for every column)")
+        print(f"{n:>5}  " + "  ".join(f"{r:>24}" for r in row)
+              + f"  {t * 1e6:>11.2f} us {lu_flops(n) / t / 1e9:>5.2f}")
+
+
+def main() -> int:
+    every = [o for o in load(ROOT / "generated" / "kernels.toml") if o.pivoting == "partial"]
+    mod = build_directory(ROOT / "generated", [o.name for o in every])
+    rng = np.random.default_rng(1)
+    print("factor time per call (microseconds, best of 5) and Gflop/s of the pivoted kernels in generated/;")
+    print("scipy = LAPACK getrf through scipy; times include copying the input and the Python call")
+    for scalar, layout in (("double", "column-major"), ("float", "row-major")):
+        group = [o for o in every if o.scalar == scalar and o.layout == layout]
+        print(f"\n{scalar}, {layout}")
+        table(mod.lib, mod.ffi, group, scalar, rng)
     return 0
 
 
