@@ -27,7 +27,8 @@ extern "C" {
  * Returns 0 on success; k+1 if the pivot U(k,k) (0-based k) is exactly zero, stopping there without
  * dividing by it (a is then partly factored); -1 if n < 0; -2 if a is NULL while n > 0;
  * -3 if lda < max(1, n).
- * NaN or Inf in a propagate into the factors; they are not detected (a NaN pivot is not zero).
+ * NaN or Inf in a propagate into the factors; they are not detected (a NaN pivot is not zero), so the
+ * code is 0 unless an exactly zero pivot occurs.
  *
  * Loop: left-looking: A11 factored (holds L11\U11); A12 input (holds A12); A21 solved (holds L21); A22 input (holds A22)
  * Block size 4; each diagonal block is factored by the unblocked crout loop.

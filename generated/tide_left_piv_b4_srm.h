@@ -28,7 +28,8 @@ extern "C" {
  * Returns 0 on success; k+1 if U(k,k) is exactly zero for the first such k (0-based): that division is
  * skipped and the factorization is completed, so U is singular; -1 if n < 0; -2 if a is NULL while n > 0;
  * -3 if lda < max(1, n); -4 if ipiv is NULL while n > 0.
- * NaN or Inf in a propagate into the factors; they are not detected (a NaN pivot is not zero).
+ * NaN or Inf in a propagate into the factors; they are not detected (a NaN pivot is not zero), so the
+ * code is 0 unless an exactly zero pivot occurs, and every ipiv entry stays in 0..n-1.
  *
  * Loop: left-looking: A11 factored (holds L11\U11); A12 input (holds A12); A21 solved (holds L21); A22 input (holds A22)
  * Block size 4; each panel is factored by the unblocked crout loop.
