@@ -39,34 +39,30 @@ def _entry(name, loop, block, inner, scalar, layout, pivoting):
     return "\n".join(lines) + "\n"
 
 
-def unpivoted_spec() -> str:
-    """Every ordering x {unblocked; blocks 2, 3, 8 with each inner ordering} x scalar x layout."""
+def _spec(prefix: str, loops, blocks, pivoting: str) -> str:
+    """Every ordering in `loops` x {unblocked; each block size with each of `loops` as inner} x scalar x layout."""
     out = []
-    for loop in LOOPS:
+    for loop in loops:
         for scalar in SCALARS:
             for layout in LAYOUTS:
                 tag = f"{scalar[0]}{'c' if layout == 'column-major' else 'r'}"
-                out.append(_entry(f"u_{SHORT[loop]}_b1_{tag}", loop, 1, None, scalar, layout, "none"))
-                for block in (2, 3, 8):
-                    for inner in LOOPS:
-                        out.append(_entry(f"u_{SHORT[loop]}_b{block}_{SHORT[inner]}_{tag}", loop, block, inner,
-                                          scalar, layout, "none"))
+                out.append(_entry(f"{prefix}_{SHORT[loop]}_b1_{tag}", loop, 1, None, scalar, layout, pivoting))
+                for block in blocks:
+                    for inner in loops:
+                        out.append(_entry(f"{prefix}_{SHORT[loop]}_b{block}_{SHORT[inner]}_{tag}", loop, block,
+                                          inner, scalar, layout, pivoting))
     return "\n".join(out)
+
+
+def unpivoted_spec() -> str:
+    """Every ordering x {unblocked; blocks 2, 3, 8 with each inner ordering} x scalar x layout."""
+    return _spec("u", LOOPS, (2, 3, 8), "none")
 
 
 def pivoted_spec() -> str:
-    """Every pivot-capable ordering x {1, 4, 16, 5 (divides no tested size of interest)} x inner x scalar x layout."""
-    out = []
-    for loop in PIVOT_LOOPS:
-        for scalar in SCALARS:
-            for layout in LAYOUTS:
-                tag = f"{scalar[0]}{'c' if layout == 'column-major' else 'r'}"
-                out.append(_entry(f"p_{SHORT[loop]}_b1_{tag}", loop, 1, None, scalar, layout, "partial"))
-                for block in (4, 16, 5):
-                    for inner in PIVOT_LOOPS:
-                        out.append(_entry(f"p_{SHORT[loop]}_b{block}_{SHORT[inner]}_{tag}", loop, block, inner,
-                                          scalar, layout, "partial"))
-    return "\n".join(out)
+    """Every pivot-capable ordering x {1, 4, 16, and 5, which divides none of 16, 32, 64} x inner x scalar x
+    layout."""
+    return _spec("p", PIVOT_LOOPS, (4, 16, 5), "partial")
 
 
 @dataclass
