@@ -68,7 +68,13 @@ def cmd_derive(args) -> int:
         d = derive(op, inv, pivoting or "none")
     except InfeasibleInvariant as e:
         return _fail(f"{inv.label}: {e}")
-    sys.stdout.write(derivation_text(d, block, show_ir=args.ir))
+    sys.stdout.write(derivation_text(d, block, show_ir=args.ir and not args.spec))
+    if args.ir and args.spec:
+        from .lower import lower_kernel
+        from .printing import dump_routine
+        print(f"\nloop IR of kernel {o.name}, every routine:")
+        for r in lower_kernel(o).routines:
+            print(dump_routine(r))
     return 0
 
 
@@ -129,7 +135,8 @@ def parser() -> argparse.ArgumentParser:
     d.add_argument("--block", type=int, help="block size for the lowered loop (default: 1 or the kernel's)")
     d.add_argument("--pivoting", choices=("none", "partial"), help="pivoting rule (default: none or the kernel's)")
     d.add_argument("--op", default="lu", help=f"operation: {', '.join(operation.OPERATIONS)} (default lu)")
-    d.add_argument("--ir", action="store_true", help="also print the lowered loop IR")
+    d.add_argument("--ir", action="store_true", help="also print the lowered loop IR (with --spec: every "
+                                                     "routine of the kernel)")
     d.set_defaults(fn=cmd_derive)
 
     g = sub.add_parser("generate", help="write NAME.c, NAME.h and NAME.py for every kernel of a spec")

@@ -152,6 +152,12 @@ def test_derive_from_spec(tmp_path, capsys):
     assert code == 0
     assert "ordering    right-looking" in out and "pivoting    partial" in out
     assert "panel factor with partial pivoting" in out
+    code, out, _ = run(["derive", "--spec", str(spec), "--kernel", "ctl_lu", "--ir"], capsys)
+    assert code == 0
+    for routine in ("routine ctl_lu(", "routine ctl_lu_inner(", "routine ctl_lu_lower(", "routine ctl_lu_upper(",
+                    "routine ctl_lu_solve("):
+        assert routine in out
+    assert "call ctl_lu_inner on pivoted panel" in out
     code, _, err = run(["derive", "--spec", str(spec), "--kernel", "nope"], capsys)
     assert code == 2 and "no kernel named 'nope'" in err
     code, _, err = run(["derive", "--loop", "up-looking", "--pivoting", "partial"], capsys)
