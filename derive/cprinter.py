@@ -2,6 +2,8 @@
 Helpers a body calls are recorded on a side channel (`needs`) so the template emits each exactly once."""
 from __future__ import annotations
 
+import re
+
 from .ir import (Block, Call, FactorCall, Gemm, Lin, Loop, Param, PivotCheck, PivotSearch, RowSwaps, Routine, Scale,
                  Trsm)
 from .printing import show_lin
@@ -178,7 +180,7 @@ class CPrinter:
             out += self.visit(s, "    ")
         out.append("    return info;" if r.on_zero == "record" else "    return 0;")
         if not public:
-            import re
+
             text = re.sub(r"/\*.*?\*/", "", "\n".join(out), flags=re.S)   # comments do not use a parameter
             unused = [p.name for p in r.params if not re.search(rf"\b{p.name}\b", text)]
             out = [f"    (void){n};  /* not needed by this loop ordering */" for n in unused] + out
@@ -213,9 +215,9 @@ class CPrinter:
                 out.append(f"    if ({p.name} == NULL && {rows} > 0) return -{pos};")
                 if p.kind == "const_pivots":
                     # pivots handed back in: an entry out of range would make the solve write outside b
-                    out += [f"    {{",
-                            f"        int i;",
+                    out += ["    {",
+                            "        int i;",
                             f"        for (i = 0; i < {rows}; ++i)",
                             f"            if ({p.name}[i] < 0 || {p.name}[i] >= {rows}) return -{pos};",
-                            f"    }}"]
+                            "    }"]
         return out

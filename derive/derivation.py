@@ -6,7 +6,7 @@ from dataclasses import dataclass
 from itertools import product
 
 from .invariants import (BlockUse, Content, InfeasibleInvariant, Invariant, content_of, content_text,
-                         block_label, equation_text, finish_uses, needs, summation_set, term_uses, use_label)
+                         block_label, equation_text, finish_uses, summation_set, term_uses, use_label)
 from .operation import Operation
 
 THREE_WAY = (0, 1, 2)

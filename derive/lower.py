@@ -3,9 +3,9 @@ options become its routines (factor, the inner unblocked loop, the two triangula
 from __future__ import annotations
 
 from . import operation
-from .derivation import THREE_WAY, Derivation, Update, derive
-from .invariants import block_label, content_text, make, TWO_WAY, content_of
-from .ir import (Block, Call, FactorCall, Gemm, Kernel, Lin, Loop, Param, PivotCheck, PivotSearch, RowSwaps,
+from .derivation import THREE_WAY, Derivation, derive
+from .invariants import TWO_WAY, content_of, content_text, make
+from .ir import (Block, Call, FactorCall, Gemm, Kernel, Loop, Param, PivotCheck, PivotSearch, RowSwaps,
                  Routine, Scale, Span, Trsm, lin)
 from .operation import Operation
 from .options import KernelOptions

@@ -32,7 +32,7 @@ LAYOUTS = ("column-major", "row-major")
 
 
 def _entry(name, loop, block, inner, scalar, layout, pivoting):
-    lines = [f'[[kernel]]', f'name = "{name}"', f'loop = "{loop}"', f'block = {block}',
+    lines = ['[[kernel]]', f'name = "{name}"', f'loop = "{loop}"', f'block = {block}',
              f'scalar = "{scalar}"', f'layout = "{layout}"', f'pivoting = "{pivoting}"']
     if inner:
         lines.append(f'inner = "{inner}"')
