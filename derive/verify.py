@@ -8,6 +8,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .accuracy import column_dominant, componentwise_ratio, factor_ratio, solve_ratio
 from .build import build, load_python
 from .emit import emit_kernel
 from .harness import CKernel
@@ -15,92 +16,6 @@ from .options import KernelOptions
 
 # LAPACK TESTING/dtest.in: THRESH = 30.0, the largest acceptable test ratio
 THRESHOLD = 30.0
-
-
-def unit_roundoff(dtype) -> float:
-    return float(np.finfo(dtype).eps) / 2
-
-
-def _ext(dtype):
-    return np.float64 if np.dtype(dtype) == np.float32 else np.longdouble
-
-
-def unpack(lu: np.ndarray, ext=None):
-    ext = ext or lu.dtype
-    x = lu.astype(ext)
-    return np.tril(x, -1) + np.eye(x.shape[0], dtype=ext), np.triu(x)
-
-
-def swapped(a: np.ndarray, ipiv) -> np.ndarray:
-    a = a.copy()
-    if ipiv is not None:
-        for k, p in enumerate(ipiv):
-            if p != k:
-                a[[k, p], :] = a[[p, k], :]
-    return a
-
-
-def factor_ratio(a, lu, ipiv=None) -> float:
-    """||P A - L U||_1 / (n ||A||_1 eps) (LAPACK TESTING/LIN/dget01.f; eps = unit roundoff)."""
-    n = a.shape[0]
-    if n == 0:
-        return 0.0
-    ext = _ext(lu.dtype)
-    eps = unit_roundoff(lu.dtype)
-    L, U = unpack(lu, ext)
-    r = swapped(a.astype(ext), ipiv) - L @ U
-    anorm = float(np.max(np.sum(np.abs(a.astype(ext)), axis=0)))
-    rnorm = float(np.max(np.sum(np.abs(r), axis=0)))
-    if anorm <= 0:
-        return 0.0 if rnorm == 0 else 1 / eps
-    return rnorm / anorm / n / eps
-
-
-def componentwise_ratio(a, lu, ipiv=None) -> float:
-    """max |P A - L U| / (gamma_n |L| |U|), evaluated in extended precision; <= 1 is the bound of Higham,
-    Accuracy and Stability of Numerical Algorithms, 2nd ed., 2002, Thm 9.3."""
-    n = a.shape[0]
-    if n == 0:
-        return 0.0
-    ext = _ext(lu.dtype)
-    u = unit_roundoff(lu.dtype)
-    gamma = n * u / (1 - n * u)
-    L, U = unpack(lu, ext)
-    r = np.abs(swapped(a.astype(ext), ipiv) - L @ U)
-    bound = gamma * (np.abs(L) @ np.abs(U))
-    with np.errstate(divide="ignore", invalid="ignore"):
-        q = np.where(r == 0, 0, r / bound)
-    return float(np.max(q))
-
-
-def solve_ratio(a, x, b) -> float:
-    """max_j ||b_j - A x_j||_1 / (||A||_1 ||x_j||_1 eps) (LAPACK TESTING/LIN/dget02.f)."""
-    n = a.shape[0]
-    if n == 0 or b.shape[1] == 0:
-        return 0.0
-    ext = _ext(x.dtype)
-    eps = unit_roundoff(x.dtype)
-    A = a.astype(ext)
-    anorm = float(np.max(np.sum(np.abs(A), axis=0)))
-    r = b.astype(ext) - A @ x.astype(ext)
-    worst = 0.0
-    for j in range(b.shape[1]):
-        bn = float(np.sum(np.abs(r[:, j])))
-        xn = float(np.sum(np.abs(x[:, j].astype(ext))))
-        if anorm <= 0 or xn <= 0:
-            worst = max(worst, 0.0 if bn == 0 else 1 / eps)
-        else:
-            worst = max(worst, bn / anorm / xn / eps)
-    return worst
-
-
-def column_dominant(n: int, rng, dtype) -> np.ndarray:
-    """Strictly column diagonally dominant: Gaussian elimination with partial pivoting makes no interchanges,
-    so an unpivoted factorization is stable on it (Higham 2002, Thm 9.9)."""
-    a = rng.uniform(-1, 1, (n, n))
-    d = np.sum(np.abs(a), axis=0) - np.abs(np.diag(a))
-    a[np.arange(n), np.arange(n)] = (d + 1) * rng.choice([-1, 1], n)
-    return a.astype(dtype)
 
 
 @dataclass
@@ -132,7 +47,7 @@ def check_kernel(ck: CKernel, py, o: KernelOptions, rng, per_size: int = 2) -> R
     sizes = sizes_for(o.block)
     for n in sizes:
         for _ in range(per_size):
-            a = (rng.standard_normal((n, n)).astype(dtype) if ck.pivoted else column_dominant(n, rng, dtype))
+            a = (rng.standard_normal((n, n)).astype(dtype) if ck.pivoted else column_dominant(n, dtype, rng))
             lda = max(1, n) + int(rng.integers(0, 4))
             info, lu, ipiv, ok = ck.factor(a, lda)
             if not ok:

@@ -13,7 +13,7 @@ sys.path.insert(0, str(ROOT))
 from derive.build import build_directory  # noqa: E402
 from derive.harness import CKernel  # noqa: E402
 from derive.spec import load  # noqa: E402
-from derive.verify import solve_ratio  # noqa: E402
+from derive.accuracy import solve_ratio  # noqa: E402
 
 PUMPS = 6
 TICKS = 8
