@@ -158,3 +158,16 @@ def test_solve(unpivoted, name, n, nrhs, pad, seed):
     k.py.solve(lu, xp)
     if n and nrhs:
         assert ref.solve_ratio(a, xp, b) < THRESH
+
+
+def test_invariant_check_catches_a_wrong_invariant(unpivoted, monkeypatch):
+    """The NumPy checker can fail: a right-looking loop judged by the Crout invariant (A22 must still hold its
+    input) and a Crout loop judged by the right-looking one (A22 must hold A22 - L21 U12) are both refused."""
+    right, crout = unpivoted["u_ri_b1_dc"].py, unpivoted["u_cr_b1_dc"].py
+    a = ref.column_dominant(6, np.float64, np.random.default_rng(1))
+    for mod, other in ((right, crout), (crout, right)):
+        monkeypatch.setattr(mod, "_INVARIANT_TERMS", other._INVARIANT_TERMS)
+        with pytest.raises(AssertionError, match="A22"):
+            mod.factor(a.copy(), check_invariant=True)
+        monkeypatch.undo()
+        assert mod.factor(a.copy(), check_invariant=True) == 0
