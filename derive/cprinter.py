@@ -180,7 +180,6 @@ class CPrinter:
             out += self.visit(s, "    ")
         out.append("    return info;" if r.on_zero == "record" else "    return 0;")
         if not public:
-
             text = re.sub(r"/\*.*?\*/", "", "\n".join(out), flags=re.S)   # comments do not use a parameter
             unused = [p.name for p in r.params if not re.search(rf"\b{p.name}\b", text)]
             out = [f"    (void){n};  /* not needed by this loop ordering */" for n in unused] + out

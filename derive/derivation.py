@@ -30,7 +30,7 @@ class Update:
     reads: tuple[BlockUse, ...] = ()
     side: str | None = None
     k: int | None = None
-    column: int | None = None
+    column: int | None = None      # swap: the position, along the rule's panel axis, of the blocks it reaches
     source: str = ""
 
     def __post_init__(self) -> None:
@@ -102,10 +102,11 @@ def _rows_touched(op: Operation, u: Update) -> list[tuple[int, ...]]:
 
 def derive(op: Operation, inv: Invariant, pivoting: str = "none") -> Derivation:
     """Derive the loop body of `inv`; raise InfeasibleInvariant with the reason when it cannot be done."""
-    rules = {r.name for r in op.pivot_rules}
+    rules = {r.name: r for r in op.pivot_rules}
     if pivoting != "none" and pivoting not in rules:
         allowed = ", ".join(["none", *sorted(rules)])
         raise InfeasibleInvariant(f"{op.name} has no pivoting rule {pivoting!r}; allowed: {allowed}")
+    rule = rules.get(pivoting)
     before = {t: _state(op, inv, t, BEFORE) for t in blocks(op)}
     after = {t: _state(op, inv, t, AFTER) for t in blocks(op)}
 
@@ -116,7 +117,7 @@ def derive(op: Operation, inv: Invariant, pivoting: str = "none") -> Derivation:
 
     panel_blocks: list[tuple[int, ...]] = []
     if pivoting != "none":
-        panel_blocks = [t for t in blocks(op) if t[1] == CURRENT and t[0] >= CURRENT]
+        panel_blocks = [t for t in blocks(op) if rule.in_panel(t, CURRENT)]
         for t in panel_blocks:
             if not after[t].final or before[t].final:
                 region, word = _region_of(op, inv, t, AFTER)
@@ -148,7 +149,8 @@ def derive(op: Operation, inv: Invariant, pivoting: str = "none") -> Derivation:
         for c in THREE_WAY:
             if c == CURRENT:
                 continue
-            gen.append(Update("swap", tuple(t for t in blocks(op) if t[1] == c and t[0] >= CURRENT), column=c,
+            group = tuple(t for t in blocks(op) if t[rule.panel_axis] == c and rule.exchanged(t, CURRENT))
+            gen.append(Update("swap", group, column=c,
                               source=f"P applied to rows of column block {c}"))
             swap_at[c] = len(gen) - 1
 
@@ -179,7 +181,7 @@ def derive(op: Operation, inv: Invariant, pivoting: str = "none") -> Derivation:
             if u.kind in ("swap", "panel"):
                 continue
             for c, s in swap_at.items():
-                touched = [t for t in _rows_touched(op, u) if len(t) == 2 and t[1] == c and t[0] >= CURRENT]
+                touched = [t for t in _rows_touched(op, u) if rule.exchanged(t, CURRENT) and t[rule.panel_axis] == c]
                 if not touched:
                     continue
                 if i in ancestors:
@@ -227,7 +229,8 @@ def self_check(d: Derivation) -> None:
     state = dict(d.before)
     after = dict(d.after)
     pivots_known = d.pivoting == "none"
-    permuted = {t: d.pivoting == "none" or t[0] < CURRENT for t in state}
+    rule = {r.name: r for r in op.pivot_rules}.get(d.pivoting)
+    permuted = {t: rule is None or not rule.exchanged(t, CURRENT) for t in state}
 
     def fail(u: Update, why: str) -> None:
         raise AssertionError(f"derivation self-check failed at '{u.kind}' ({u.source}): {why}")

@@ -90,8 +90,13 @@ def lower_updates(d: Derivation, step: int, shapes: Shapes, inner: str | None) -
             out.append(PivotCheck(b, u.source) if step == 1 else FactorCall(b, inner, False, u.source))
         elif u.kind == "panel":
             arg, rows, cols = shapes.args[tgt]
-            col = sorted({t[1] for t in u.targets})
-            panel = Block(arg, frame.union([t[0] for t in u.targets], rows), frame.span(col[0], cols))
+            rule = {r.name: r for r in op.pivot_rules}[d.pivoting]
+            extents = (rows, cols)
+            spans = [None, None]
+            e, p = rule.exchange_axis, rule.panel_axis
+            spans[e] = frame.union([t[e] for t in u.targets], extents[e])
+            spans[p] = frame.span(u.targets[0][p], extents[p])
+            panel = Block(arg, spans[0], spans[1])
             out.append(PivotSearch(panel, u.source) if step == 1 else FactorCall(panel, inner, True, u.source))
         elif u.kind == "swap":
             arg, rows, cols = shapes.args[tgt]

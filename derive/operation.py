@@ -79,9 +79,24 @@ class Region:
 
 @dataclass(frozen=True, slots=True)
 class PivotRule:
-    """Row interchanges: the panel is the current column of blocks from the diagonal down; the interchanges it
-    finds act on the rows of the current and later row blocks, in every column block."""
+    """Interchanges chosen inside a panel. The panel is the blocks whose `panel_axis` index is the current
+    position and whose `exchange_axis` index is the current position or later; the pivot is chosen along the
+    exchange axis and the interchanges then act along it in every other block of the panel axis.
+    Partial (row) pivoting of LU: panel_axis 1 (the current block column), exchange_axis 0 (rows)."""
     name: str                   # the spec's word for it, e.g. "partial"
+    panel_axis: int = 1
+    exchange_axis: int = 0
+
+    def __post_init__(self) -> None:
+        if {self.panel_axis, self.exchange_axis} != {0, 1}:
+            raise ValueError("a pivot rule needs one panel axis and one exchange axis of a 2-index target")
+
+    def in_panel(self, t: tuple[int, ...], current: int) -> bool:
+        return t[self.panel_axis] == current and t[self.exchange_axis] >= current
+
+    def exchanged(self, t: tuple[int, ...], current: int) -> bool:
+        """Whether the interchanges of the current step reach block t."""
+        return len(t) == 2 and t[self.exchange_axis] >= current
 
 
 @dataclass(frozen=True, slots=True)

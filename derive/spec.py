@@ -6,7 +6,7 @@ import tomllib
 from pathlib import Path
 
 from . import operation
-from .derivation import derive
+from .derivation import derive, pivoting_supported
 from .invariants import InfeasibleInvariant, by_name, from_mapping
 from .options import (C_KEYWORDS, DEFAULT_SOLVE_LOOP, LAYOUTS, MAX_BLOCK, PIVOTING, SCALARS, KernelOptions,
                       is_c_identifier)
@@ -168,7 +168,7 @@ def _kernel(entry: dict, defaults: dict, i: int, spec_name: str, where: str,
             try:
                 derive(lu, which, pivoting)
             except InfeasibleInvariant as e:
-                capable = [n for n in _loops(lu) if _pivots(by_name(lu, n), pivoting)]
+                capable = [n for n in _loops(lu) if pivoting in pivoting_supported(lu, by_name(lu, n))]
                 bad(key, f"the {which.label} loop cannot do {pivoting} pivoting: {e}. Loops that can: "
                          f"{', '.join(capable)}")
 
@@ -192,10 +192,3 @@ def _kernel(entry: dict, defaults: dict, i: int, spec_name: str, where: str,
         solve_lower=by_name(operation.LOWER_SOLVE, lower).words,
         solve_upper=by_name(operation.UPPER_SOLVE, upper).words, spec=spec_name)
 
-
-def _pivots(inv, rule: str) -> bool:
-    try:
-        derive(operation.LU, inv, rule)
-        return True
-    except InfeasibleInvariant:
-        return False
