@@ -37,6 +37,8 @@ def test_matches_lapack_getrf(pivoted, name, n, pad, seed):
     # same pivot rule as getrf (first entry of largest magnitude); getrf's ipiv is 1-based
     assert np.array_equal(ipiv, piv_s), "pivot sequence differs from LAPACK getrf"
     L, U = ref.unpack(lu_s)
+    # the exact factors are unknown; the bound is formed around getrf's, which differ from them by a
+    # second-order amount (the same pivots were checked above, so both factor the same P A)
     tol_l, tol_u = ref.factor_tolerance(L, U, k.c.dtype)
     Lh, Uh = ref.unpack(lu)
     # both computed factors lie within the perturbation bound of the exact ones: twice it of each other
@@ -64,7 +66,7 @@ def test_solve_matches_lu_solve(pivoted, name, n, nrhs, pad, seed):
     assert ref.solve_ratio(a, x, b) < THRESH          # LAPACK TESTING/LIN/dget02.f
     xs = scipy.linalg.lu_solve(scipy.linalg.lu_factor(a), b)
     # normwise forward error of each: kappa * eta / (1 - kappa * eta), eta = gamma_3n || |L||U| || / ||A||
-    # (Higham 2002, Thm 9.4 for the backward error, Thm 7.2 for the forward error)
+    # (Higham 2002, Thm 9.4 for the backward error, Thm 7.2 for the forward error; theorem numbers from memory)
     L, U = ref.unpack(lu)
     kappa = np.linalg.cond(a.astype(np.float64), np.inf)
     eta = ref.gamma(3 * n, k.c.dtype) * np.linalg.norm(np.abs(L) @ np.abs(U), np.inf) / np.linalg.norm(
@@ -138,8 +140,9 @@ def test_python_invariant_agrees_with_c(pivoted, name, n, seed):
     assert ref.componentwise_ratio(a, pa, ipiv_p) <= 1    # Higham 2002, Thm 9.3
     if n:
         L, U = ref.unpack(lu)
-        tol_l, tol_u = ref.factor_tolerance(L, U, k.c.dtype)
+        tol_l, tol_u = ref.factor_tolerance(L, U, k.c.dtype)   # around the C factors, as above around getrf's
         Lp, Up = ref.unpack(pa)
+        # both within the perturbation bound of the exact factors of P A: within twice it of each other
         assert np.max(np.abs(Lp - L)) <= 2 * tol_l and np.max(np.abs(Up - U)) <= 2 * tol_u
 
 

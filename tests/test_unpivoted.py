@@ -80,6 +80,8 @@ def test_agrees_with_scipy_on_column_dominant(unpivoted, name):
         assert np.array_equal(p, np.eye(n)), "reference made interchanges on a dominant matrix"
         info, lu, _, ok = k.c.factor(a, lda=n + 3)
         assert info == 0 and ok
+        # both computed factorizations lie within the perturbation bound of the exact factors (formed here
+        # around getrf's, a second-order difference), hence within twice it of each other
         tol_l, tol_u = ref.factor_tolerance(l, u, k.c.dtype)
         Lh, Uh = ref.unpack(lu)
         assert np.max(np.abs(Lh - l)) <= 2 * tol_l
