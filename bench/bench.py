@@ -12,8 +12,8 @@ import scipy.linalg
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
-from derive.build import build_directory  # noqa: E402
-from derive.counts import lu_flops  # noqa: E402
+from derive.check.build import build_directory  # noqa: E402
+from derive.lowering.counts import lu_flops  # noqa: E402
 from derive.spec import load  # noqa: E402
 
 SIZES = (4, 8, 16, 32, 64, 128, 256)

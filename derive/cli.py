@@ -7,11 +7,12 @@ import json
 import sys
 from pathlib import Path
 
-from . import __version__, operation
-from .derivation import derive
-from .explain import derivation_text, variants_rows, variants_table
-from .invariants import InfeasibleInvariant, by_name, make
-from .spec import SpecError, load
+from derive import __version__
+from derive.engine import operation
+from derive.engine.derivation import derive
+from derive.printers.explain import derivation_text, variants_rows, variants_table
+from derive.engine.invariants import InfeasibleInvariant, by_name, make
+from derive.spec import SpecError, load
 
 EXIT_BAD_INPUT = 2
 
@@ -70,8 +71,8 @@ def cmd_derive(args) -> int:
         return _fail(f"{inv.label}: {e}")
     sys.stdout.write(derivation_text(d, block, show_ir=args.ir and not args.spec))
     if args.ir and args.spec:
-        from .lower import lower_kernel
-        from .printing import dump_routine
+        from derive.lowering.lower import lower_kernel
+        from derive.lowering.printing import dump_routine
         print(f"\nloop IR of kernel {o.name}, every routine:")
         for r in lower_kernel(o).routines:
             print(dump_routine(r))
@@ -79,7 +80,7 @@ def cmd_derive(args) -> int:
 
 
 def cmd_generate(args) -> int:
-    from .emit import emit_kernel, write_atomically
+    from derive.printers.emit import emit_kernel, write_atomically
     spec = Path(args.spec)
     try:
         options = load(spec)
@@ -102,8 +103,8 @@ def cmd_generate(args) -> int:
 
 
 def cmd_verify(args) -> int:
-    from .build import BuildError
-    from .verify import table, verify
+    from derive.check.build import BuildError
+    from derive.check.verify import table, verify
     try:
         options = load(args.spec)
     except SpecError as e:

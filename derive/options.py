@@ -6,8 +6,8 @@ import hashlib
 import json
 from dataclasses import asdict, dataclass
 
-from . import operation
-from .invariants import by_name, make
+from derive.engine import operation
+from derive.engine.invariants import by_name, make
 
 SCALARS = ("double", "float")
 LAYOUTS = ("column-major", "row-major")

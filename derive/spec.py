@@ -5,10 +5,10 @@ from __future__ import annotations
 import tomllib
 from pathlib import Path
 
-from . import operation
-from .derivation import derive, pivoting_supported
-from .invariants import InfeasibleInvariant, by_name, from_mapping
-from .options import (C_KEYWORDS, DEFAULT_SOLVE_LOOP, LAYOUTS, MAX_BLOCK, PIVOTING, SCALARS, KernelOptions,
+from derive.engine import operation
+from derive.engine.derivation import derive, pivoting_supported
+from derive.engine.invariants import InfeasibleInvariant, by_name, from_mapping
+from derive.options import (C_KEYWORDS, DEFAULT_SOLVE_LOOP, LAYOUTS, MAX_BLOCK, PIVOTING, SCALARS, KernelOptions,
                       is_c_identifier)
 
 KERNEL_KEYS = ("name", "loop", "invariant", "block", "inner", "scalar", "layout", "pivoting", "solve_loop")

@@ -10,10 +10,10 @@ import numpy as np
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
-from derive.build import build_directory  # noqa: E402
-from derive.harness import CKernel  # noqa: E402
+from derive.check.build import build_directory  # noqa: E402
+from derive.check.harness import CKernel  # noqa: E402
 from derive.spec import load  # noqa: E402
-from derive.accuracy import solve_ratio  # noqa: E402
+from derive.check.accuracy import solve_ratio  # noqa: E402
 
 PUMPS = 6
 TICKS = 8

@@ -14,9 +14,9 @@ ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-from derive.build import build, load_python  # noqa: E402
-from derive.emit import emit_kernel, write_atomically  # noqa: E402
-from derive.harness import CKernel  # noqa: E402
+from derive.check.build import build, load_python  # noqa: E402
+from derive.printers.emit import emit_kernel, write_atomically  # noqa: E402
+from derive.check.harness import CKernel  # noqa: E402
 from derive.spec import parse  # noqa: E402
 
 # A fixed, derandomized budget: the same examples on every run, so CI is reproducible (common practice).

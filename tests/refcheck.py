@@ -1,7 +1,7 @@
 # refcheck: test-matrix generators for checking luforge's LU kernels (pure NumPy).
 # The accuracy measures they are judged by live in derive/accuracy.py and are re-exported here.
 """Reference checks for LU factorization kernels: the test-matrix generators (LAPACK's GE matrix types, known
-factors, Pascal, Wilkinson, exact zero pivots), with the accuracy measures from derive.accuracy re-exported.
+factors, Pascal, Wilkinson, exact zero pivots), with the accuracy measures from derive.check.accuracy re-exported.
 
 Conventions: matrices are logical 2-D NumPy arrays; ``ipiv`` is a 0-based sequence of row swaps.
 """
@@ -12,7 +12,7 @@ import math
 
 import numpy as np
 
-from derive.accuracy import (_accurate_product, _as_float, _componentwise_ratio,  # noqa: F401
+from derive.check.accuracy import (_accurate_product, _as_float, _componentwise_ratio,  # noqa: F401
                              _ext_unit_roundoff, _float_dtype, _residual, _rng, _work_mode, apply_swaps,
                              column_dominant, componentwise_ratio, factor_ratio, gamma, solve_ratio,
                              unit_roundoff, unpack)

@@ -6,11 +6,11 @@ import dataclasses
 
 import pytest
 
-from derive import operation
-from derive.counts import kernel_flops, lu_flops, solve_flops
-from derive.derivation import Update, derive, pivoting_supported, self_check
-from derive.invariants import InfeasibleInvariant, by_name, check, enumerate_invariants, from_mapping
-from derive.lower import lower_kernel
+from derive.engine import operation
+from derive.lowering.counts import kernel_flops, lu_flops, solve_flops
+from derive.engine.derivation import Update, derive, pivoting_supported, self_check
+from derive.engine.invariants import InfeasibleInvariant, by_name, check, enumerate_invariants, from_mapping
+from derive.lowering.lower import lower_kernel
 from derive.options import make_options
 
 LU = operation.LU

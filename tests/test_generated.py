@@ -9,7 +9,7 @@ from pathlib import Path
 
 import pytest
 
-from derive.emit import emit_kernel
+from derive.printers.emit import emit_kernel
 from derive.spec import load
 
 ROOT = Path(__file__).resolve().parent.parent

@@ -6,8 +6,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .options import KernelOptions
-from .targets import LAYOUTS, SCALARS
+from derive.options import KernelOptions
+from derive.targets.storage import LAYOUTS, SCALARS
 
 GUARD = 7           # canary entries before and after every buffer
 CANARY = -7.25e11   # exactly representable in float32 and float64, and not a value a factorization produces here

@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import re
 
-from .ir import (Block, Call, FactorCall, Gemm, Lin, Loop, Param, PivotCheck, PivotSearch, RowSwaps, Routine, Scale,
+from derive.lowering.ir import (Block, Call, FactorCall, Gemm, Lin, Loop, Param, PivotCheck, PivotSearch, RowSwaps, Routine, Scale,
                  Trsm)
-from .printing import show_lin
-from .targets import Layout, Scalar
+from derive.lowering.printing import show_lin
+from derive.targets.storage import Layout, Scalar
 
 # Helpers that are always emitted together with the one named (a helper calling another), and the order in
 # which they are defined (callees first).

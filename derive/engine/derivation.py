@@ -5,9 +5,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 from itertools import product
 
-from .invariants import (BlockUse, Content, InfeasibleInvariant, Invariant, content_of, content_text,
+from derive.engine.invariants import (BlockUse, Content, InfeasibleInvariant, Invariant, content_of, content_text,
                          block_label, equation_text, finish_uses, summation_set, term_uses, use_label)
-from .operation import Operation
+from derive.engine.operation import Operation
 
 THREE_WAY = (0, 1, 2)
 CURRENT = 1

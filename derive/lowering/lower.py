@@ -2,14 +2,14 @@
 options become its routines (factor, the inner unblocked loop, the two triangular solves, the solve driver)."""
 from __future__ import annotations
 
-from . import operation
-from .derivation import THREE_WAY, Derivation, derive
-from .invariants import TWO_WAY, content_of, content_text, make
-from .ir import (Block, Call, FactorCall, Gemm, Kernel, Loop, Param, PivotCheck, PivotSearch, RowSwaps,
+from derive.engine import operation
+from derive.engine.derivation import THREE_WAY, Derivation, derive
+from derive.engine.invariants import TWO_WAY, content_of, content_text, make
+from derive.lowering.ir import (Block, Call, FactorCall, Gemm, Kernel, Loop, Param, PivotCheck, PivotSearch, RowSwaps,
                  Routine, Scale, Span, Trsm, lin)
-from .operation import Operation
-from .options import KernelOptions
-from .printing import show_span
+from derive.engine.operation import Operation
+from derive.options import KernelOptions
+from derive.lowering.printing import show_span
 
 K = "k"
 KB = "kb"

@@ -2,12 +2,12 @@
 the before/after contents of every block of the 3x3 split, the ordered updates and the lowered loop."""
 from __future__ import annotations
 
-from .derivation import THREE_WAY, Derivation, pivoting_supported
-from .invariants import (TWO_WAY, Invariant, block_label, content_of, content_text, enumerate_invariants,
+from derive.engine.derivation import THREE_WAY, Derivation, pivoting_supported
+from derive.engine.invariants import (TWO_WAY, Invariant, block_label, content_of, content_text, enumerate_invariants,
                          equation_text, use_label)
-from .lower import Frame, display_shapes, gemm_shape, lower_derivation_for_display
-from .operation import Operation
-from .printing import dump_stmt
+from derive.lowering.lower import Frame, display_shapes, gemm_shape, lower_derivation_for_display
+from derive.engine.operation import Operation
+from derive.lowering.printing import dump_stmt
 
 UPDATE_WORDS = {
     "gemm": "GEMM",

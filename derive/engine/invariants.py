@@ -5,7 +5,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from itertools import product
 
-from .operation import FINAL, INPUT, PARTIAL, Equation, Operation, Ref
+from derive.engine.operation import FINAL, INPUT, PARTIAL, Equation, Operation, Ref
 
 
 class InfeasibleInvariant(ValueError):

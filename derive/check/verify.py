@@ -8,11 +8,11 @@ from pathlib import Path
 
 import numpy as np
 
-from .accuracy import column_dominant, componentwise_ratio, factor_ratio, solve_ratio
-from .build import build, load_python
-from .emit import emit_kernel
-from .harness import CKernel
-from .options import KernelOptions
+from derive.check.accuracy import column_dominant, componentwise_ratio, factor_ratio, solve_ratio
+from derive.check.build import build, load_python
+from derive.printers.emit import emit_kernel
+from derive.check.harness import CKernel
+from derive.options import KernelOptions
 
 # LAPACK TESTING/dtest.in: THRESH = 30.0, the largest acceptable test ratio
 THRESHOLD = 30.0

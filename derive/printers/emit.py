@@ -10,23 +10,24 @@ from pathlib import Path
 
 import jinja2
 
-from . import __version__, operation
-from .counts import kernel_flops
-from .cprinter import HELPER_ORDER, CPrinter
-from .invariants import make
-from .ir import Kernel
-from .lower import invariant_text, lower_kernel
-from .options import KernelOptions
-from .pyprinter import PyPrinter, invariant_data
-from .targets import LAYOUTS, SCALARS
+from derive import __version__
+from derive.engine import operation
+from derive.lowering.counts import kernel_flops
+from derive.printers.cprinter import HELPER_ORDER, CPrinter
+from derive.engine.invariants import make
+from derive.lowering.ir import Kernel
+from derive.lowering.lower import invariant_text, lower_kernel
+from derive.options import KernelOptions
+from derive.printers.pyprinter import PyPrinter, invariant_data
+from derive.targets.storage import LAYOUTS, SCALARS
 
-TEMPLATES = Path(__file__).resolve().parent / "templates"
+TEMPLATES = Path(__file__).resolve().parents[1] / "templates"
 
 
 @functools.lru_cache(maxsize=1)
 def _environment() -> jinja2.Environment:
     # an installed package carries the templates inside it; a source checkout keeps them at the top level
-    here = TEMPLATES if TEMPLATES.is_dir() else Path(__file__).resolve().parent.parent / "templates"
+    here = TEMPLATES if TEMPLATES.is_dir() else Path(__file__).resolve().parents[2] / "templates"
     return jinja2.Environment(loader=jinja2.FileSystemLoader(str(here)), undefined=jinja2.StrictUndefined,
                               keep_trailing_newline=True, trim_blocks=False, lstrip_blocks=False,
                               autoescape=False)

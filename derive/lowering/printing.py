@@ -2,7 +2,7 @@
 Language printers (C, Python) build on show_lin; the dump is what `luforge derive --ir` prints."""
 from __future__ import annotations
 
-from .ir import (Block, Call, FactorCall, Gemm, Lin, Loop, PivotCheck, PivotSearch, RowSwaps, Routine, Scale,
+from derive.lowering.ir import (Block, Call, FactorCall, Gemm, Lin, Loop, PivotCheck, PivotSearch, RowSwaps, Routine, Scale,
                  Span, Trsm)
 
 

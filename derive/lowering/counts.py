@@ -2,7 +2,7 @@
 additions, divisions; comparisons and interchanges are free). Tests hold these to the closed forms below."""
 from __future__ import annotations
 
-from .ir import (Call, FactorCall, Gemm, Kernel, Loop, PivotCheck, PivotSearch, RowSwaps, Routine, Scale, Trsm)
+from derive.lowering.ir import (Call, FactorCall, Gemm, Kernel, Loop, PivotCheck, PivotSearch, RowSwaps, Routine, Scale, Trsm)
 
 
 def lu_flops(n: int) -> int:

@@ -2,11 +2,11 @@
 method per node type, and the invariant of the factor loop as data that the module's checker interprets."""
 from __future__ import annotations
 
-from . import operation
-from .invariants import TWO_WAY, bind, content_of, summation_set, term_uses
-from .ir import (Block, Call, FactorCall, Gemm, Lin, Loop, PivotCheck, PivotSearch, RowSwaps, Routine, Scale, Span,
+from derive.engine import operation
+from derive.engine.invariants import TWO_WAY, bind, content_of, summation_set, term_uses
+from derive.lowering.ir import (Block, Call, FactorCall, Gemm, Lin, Loop, PivotCheck, PivotSearch, RowSwaps, Routine, Scale, Span,
                  Trsm)
-from .printing import show_lin
+from derive.lowering.printing import show_lin
 
 
 class PyPrinter:

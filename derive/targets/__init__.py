@@ -1,0 +1,1 @@
+"""Tables of what code is specialised for and where it runs: storage layouts, scalars and targets."""
