@@ -177,3 +177,42 @@ def test_console_script_or_module_exit_status(tmp_path):
     cmd = [exe] if exe and Path(exe).parent == Path(sys.executable).parent else [sys.executable, "-m", "derive.cli"]
     res = subprocess.run(cmd + ["generate", str(spec)], capture_output=True, text=True)
     assert res.returncode == 2 and "key 'loop'" in res.stderr
+
+
+# --- a CLI a newcomer can drive (issue 6) ---
+
+def test_luforge_alone_prints_help_and_exits_0(capsys):
+    code, out, err = run([], capsys)
+    assert code == 0 and "usage: luforge" in out and "verify" in out and "examples:" in out, err
+
+
+def test_every_verb_has_help_for_every_argument_and_examples():
+    from derive.cli import parser
+    top = parser()
+    sub = next(a for a in top._actions if a.dest == "verb")
+    assert set(sub.choices) >= {"variants", "derive", "generate", "verify"}
+    for verb, p in sub.choices.items():
+        assert p.epilog and p.epilog.startswith("examples:") and "luforge " + verb in p.epilog, verb
+        for action in p._actions:
+            assert action.help, f"{verb}: {action.dest} has no help text"
+            if action.choices:
+                assert all(str(c) in action.help for c in action.choices), f"{verb} {action.dest}: choices"
+
+
+def test_bad_arguments_give_one_line_and_exit_2(capsys):
+    for argv, words in ((["verify", "x.toml", "--per-size", "0"], "allowed: an integer >= 1"),
+                        (["verify", "x.toml", "--per-size", "-5"], "allowed: an integer >= 1"),
+                        (["verify", "x.toml", "--seed", "-1"], "allowed: 0 to 2**63 - 1"),
+                        (["derive", "--loop", "diagonal"], "bordered"),
+                        (["derive", "--op", "qr"], "lower-solve"),
+                        (["nope"], "invalid choice")):
+        with pytest.raises(SystemExit) as e:
+            main(argv)
+        err = capsys.readouterr().err
+        assert e.value.code == 2 and words in err and len(err.strip().splitlines()) == 1, (argv, err)
+
+
+def test_python_dash_m_derive_runs_the_cli():
+    res = subprocess.run([sys.executable, "-m", "derive", "--help"], capture_output=True, text=True,
+                         cwd=Path(__file__).resolve().parents[1])
+    assert res.returncode == 0 and "usage: luforge" in res.stdout
