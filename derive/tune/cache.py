@@ -1,0 +1,64 @@
+"""The tune cache: verification verdicts and measurements stored as small JSON files under the build cache, keyed
+by everything that determines the figure: the emitted code, the compiler and its flags, the target, n and nrhs."""
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import platform
+from pathlib import Path
+
+from derive.check.build import cache_root, compiler, compiler_version
+
+PROTOCOL = "tune-1"      # bump when the way a figure is measured changes, so old figures are not reused
+
+
+def _digest(*parts) -> str:
+    h = hashlib.sha256()
+    for p in parts:
+        h.update(p.encode() if isinstance(p, str) else json.dumps(p, sort_keys=True).encode())
+        h.update(b"\0")
+    return h.hexdigest()
+
+
+def machine() -> str:
+    """The host's processor model: host timings are only comparable on the same kind of machine."""
+    model = platform.machine()
+    try:
+        for line in Path("/proc/cpuinfo").read_text().splitlines():
+            if line.startswith("model name"):
+                return model + " " + line.split(":", 1)[1].strip()
+    except OSError:
+        pass
+    return model
+
+
+def code_key(files: dict[str, str], flags, target: str) -> str:
+    """Everything that determines a built kernel: its texts, the compiler and its version, flags and target."""
+    cc = compiler()
+    return _digest(PROTOCOL, sorted(files.items()), cc, compiler_version(cc), list(flags), target)
+
+
+class Cache:
+    def __init__(self, root: Path | None = None):
+        self.root = (root or cache_root()) / "tune"
+
+    def _path(self, kind: str, key: str) -> Path:
+        return self.root / kind / key[:2] / f"{key}.json"
+
+    def get(self, kind: str, key: str):
+        try:
+            return json.loads(self._path(kind, key).read_text())
+        except (OSError, ValueError):
+            return None
+
+    def put(self, kind: str, key: str, value) -> None:
+        p = self._path(kind, key)
+        p.parent.mkdir(parents=True, exist_ok=True)
+        tmp = p.with_suffix(f".{os.getpid()}.tmp")
+        tmp.write_text(json.dumps(value, sort_keys=True))
+        os.replace(tmp, p)   # a reader never sees half a file, and Ctrl-C leaves whole entries only
+
+    @staticmethod
+    def figure_key(code: str, target: str, n: int, nrhs: int, where: str) -> str:
+        return _digest(code, target, n, nrhs, where)
