@@ -15,6 +15,7 @@ VERBS = (
     "derive.verbs.derive",
     "derive.verbs.generate",
     "derive.verbs.verify",
+    "derive.tune.verb",
 )
 
 

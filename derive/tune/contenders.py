@@ -20,21 +20,23 @@ def _cxx() -> str | None:
 def _eigen_source(T: str, layout: str, sizes, nrhs: int) -> str:
     order = "Eigen::ColMajor" if layout == "column-major" else "Eigen::RowMajor"
     rhs = max(nrhs, 1)
-    out = ["#include <Eigen/Dense>", "static volatile double eig_sink;"]
+    out = ["#include <Eigen/Dense>"]
     for n in sizes:
         border = order if rhs > 1 else "Eigen::ColMajor"   # Eigen refuses a row-major column vector
         mat = f"Eigen::Matrix<{T}, {n}, {n}, {order}>"
         vec = f"Eigen::Matrix<{T}, {n}, {rhs}, {border}>"
         out.append(f"""
 static Eigen::PartialPivLU<{mat}> *eig_lu_{n};
-extern "C" int eig_setup_{n}(const {T} *a0) {{ eig_lu_{n} = new Eigen::PartialPivLU<{mat}>(Eigen::Map<const {mat}>(a0)); return 0; }}
+extern "C" int eig_setup_{n}(const {T} *a0) {{ {mat} m = Eigen::Map<const {mat}>(a0); eig_lu_{n} = new Eigen::PartialPivLU<{mat}>(m); return 0; }}
 extern "C" int eig_factor_{n}(const {T} *a0, {T} *work) {{
-    Eigen::PartialPivLU<{mat}> lu(Eigen::Map<const {mat}>(a0));
-    work[0] = lu.matrixLU()(0, 0);
-    return 0;
+    Eigen::Map<{mat}> w(work);
+    w = Eigen::Map<const {mat}>(a0);
+    Eigen::PartialPivLU<Eigen::Ref<{mat}> > lu(w);   // in place, like the kernels: one copy of the input
+    return (int)lu.permutationP().indices()(0);
 }}
 extern "C" int eig_solve_{n}(const {T} *b0, {T} *bw) {{
-    Eigen::Map<{vec}>(bw) = eig_lu_{n}->solve(Eigen::Map<const {vec}>(b0));
+    Eigen::Map<{vec}> x(bw);
+    x = eig_lu_{n}->solve(Eigen::Map<const {vec}>(b0));
     return 0;
 }}""")
     return "\n".join(out) + "\n"
@@ -101,7 +103,7 @@ def lapack(T: str, layout: str, sizes, nrhs: int, pivoted: bool) -> Contender | 
                 f"{p}getrs_(\"N\", &n, &r, lap_lu_{n}, &n, lap_piv_{n}, bw, &n, &info, 1); sink += info;")
 
     def setup(n):
-        first = f'    fprintf(stderr, "OpenBLAS core: %s\\n", openblas_get_corename());\n' if n == min(sizes) else ""
+        first = '    fprintf(stderr, "OpenBLAS core: %s\\n", openblas_get_corename());\n' if n == min(sizes) else ""
         return (first + f"    {{ int n = {n}, info; memcpy(lap_lu_{n}, a0_{n}, sizeof a0_{n}); "
                 f"{p}getrf_(&n, &n, lap_lu_{n}, &n, lap_piv_{n}, &info); sink += info; }}")
     return Contender("lapack", decls, factor, solve, setup, objects=[], libs=["-lopenblas"])

@@ -1,0 +1,201 @@
+"""The tune pipeline: enumerate the space, emit and verify every candidate, measure what the cache lacks, join the
+best factor with the best solve of each whole-kernel group, and hand the figures to the ranking."""
+from __future__ import annotations
+
+import sys
+import time
+from dataclasses import dataclass, field
+
+from derive.check.build import OPT_FLAGS
+from derive.printers.emit import emit_kernel
+from derive.tune import measure
+from derive.tune.cache import Cache, code_key
+from derive.tune.space import Candidate, Case, candidate, enumerate_space, to_options
+
+VERIFY_BATCH = 8     # kernels per cffi module while verifying: small enough that Ctrl-C loses little
+
+
+class Progress:
+    """One status line on a terminal (rewritten in place), plain lines otherwise."""
+
+    def __init__(self, stream=None, quiet: bool = False):
+        self.stream = stream or sys.stderr
+        self.tty = self.stream.isatty()
+        self.quiet = quiet
+        self.started = time.monotonic()
+
+    def step(self, what: str, done: int, total: int) -> None:
+        if self.quiet:
+            return
+        width = 24
+        fill = int(width * done / max(total, 1))
+        bar = "#" * fill + "." * (width - fill)
+        line = f"[{bar}] {done}/{total} {what}"
+        if self.tty:
+            self.stream.write("\r" + line[:119].ljust(119))
+            if done >= total:
+                self.stream.write("\n")
+        elif done in (0, total) or done % 10 == 0:
+            self.stream.write(line + "\n")
+        self.stream.flush()
+
+    def note(self, text: str) -> None:
+        if not self.quiet:
+            self.stream.write(text + "\n")
+            self.stream.flush()
+
+
+@dataclass
+class Measured:
+    """What tune knows about one candidate: its verdict and its figures per n (None where not measured)."""
+    cand: Candidate
+    verified: bool | None = None
+    problems: list[str] = field(default_factory=list)
+    figures: dict[int, dict] = field(default_factory=dict)    # n -> {"factor": .., "solve": .., ...}
+    static: dict = field(default_factory=dict)                 # n-independent figures: bytes, stack
+    cached: int = 0                                            # figures taken from the cache
+
+
+@dataclass
+class Outcome:
+    case: Case
+    objective: str
+    results: list[Measured]
+    contenders: dict[str, dict[int, dict]]      # tag -> n -> figures
+    untuned: list[str]
+    interrupted: bool = False
+    notes: list[str] = field(default_factory=list)
+    seconds: float = 0.0
+    measured_now: int = 0
+
+
+def _files(cand: Candidate) -> dict[str, str]:
+    return dict(emit_kernel(to_options(cand)).files)
+
+
+def verify_all(items: list[Measured], files: dict[str, dict], cache: Cache, flags, target: str,
+               progress: Progress) -> None:
+    """Every candidate passes luforge's own verify (LAPACK's ratios, Higham's bound, canaries, the NumPy twin)
+    before it is measured; verdicts are cached by the code's key."""
+    from derive.check.verify import verify
+    todo = []
+    for m in items:
+        got = cache.get("verified", code_key(files[m.cand.name], flags, "verify"))
+        if got is None:
+            todo.append(m)
+        else:
+            m.verified, m.problems = got["passed"], got["problems"]
+    for i in range(0, len(todo), VERIFY_BATCH):
+        progress.step(f"verifying {todo[i].cand.label()}", i, len(todo))
+        batch = todo[i:i + VERIFY_BATCH]
+        rows = verify([to_options(m.cand) for m in batch])
+        for m, row in zip(batch, rows):
+            m.verified, m.problems = row.passed, list(row.problems)
+            cache.put("verified", code_key(files[m.cand.name], flags, "verify"),
+                      {"passed": row.passed, "problems": row.problems})
+    if todo:
+        progress.step("verified", len(todo), len(todo))
+
+
+def measure_all(case: Case, items: list[Measured], files: dict[str, dict], cache: Cache, flags, progress: Progress,
+                fresh: bool, outcome: Outcome, contenders: bool = True) -> None:
+    backend = measure.backend(case.target)
+    where = backend.where()
+    for m in items:
+        if not m.verified:
+            continue
+        ck = code_key(files[m.cand.name], flags, case.target)
+        st = None if fresh else cache.get("static", cache.figure_key(ck, case.target, 0, 0, where))
+        if st is None:
+            st = backend.static(m.cand.name, files[m.cand.name], flags)
+            cache.put("static", cache.figure_key(ck, case.target, 0, 0, where), st)
+        m.static = st
+    for n in case.sizes:
+        want = []
+        for m in items:
+            if not m.verified or n not in m.cand.sizes:
+                continue
+            key = cache.figure_key(code_key(files[m.cand.name], flags, case.target), case.target, n, case.nrhs, where)
+            got = None if fresh else cache.get("figure", key)
+            if got is None:
+                want.append((m, key))
+            else:
+                m.figures[n] = got
+                m.cached += 1
+        ckey = cache.figure_key(backend.contender_key(case, flags), case.target, n, case.nrhs, where)
+        cont = None if fresh else cache.get("contenders", ckey)
+        if not want and (cont is not None or not contenders):
+            for tag, fig in (cont or {}).items() if contenders else ():
+                outcome.contenders.setdefault(tag, {})[n] = fig
+            continue
+        progress.step(f"measuring {len(want)} kernels at n = {n} on {case.target}", 0, 1)
+        figs, conts, notes = backend.measure(case, n, [(m.cand.name, files[m.cand.name]) for m, _ in want], flags,
+                                             contenders)
+        for (m, key) in want:
+            m.figures[n] = figs[m.cand.name]
+            cache.put("figure", key, figs[m.cand.name])
+            outcome.measured_now += 1
+        if contenders:
+            cache.put("contenders", ckey, conts)
+        for tag, fig in conts.items():
+            outcome.contenders.setdefault(tag, {})[n] = fig
+        outcome.notes += [x for x in notes if x not in outcome.notes]
+        progress.step(f"measured n = {n}", 1, 1)
+
+
+def _join(case: Case, items: list[Measured], part_figure) -> list[Candidate]:
+    """The best factor and the best solve of each whole-kernel group, joined into one kernel (the halves are
+    separate functions: the solve reads the factor's output, never how it was computed)."""
+    out = []
+    groups = {}
+    for m in items:
+        if m.verified and m.figures:
+            groups.setdefault(m.cand.group, []).append(m)
+    for group, ms in groups.items():
+        sizes = sorted({n for m in ms for n in m.cand.sizes})
+
+        def best(part):
+            pool = [m for m in ms if m.cand.part in (part, "both") and all(n in m.figures for n in m.cand.sizes)
+                    and tuple(sizes) == m.cand.sizes]
+            return min(pool, key=lambda m: sum(part_figure(m, n, part) for n in sizes), default=None)
+        f, s = best("factor"), best("solve")
+        if f is None or s is None:
+            continue
+        entry = dict(f.cand.entry)
+        entry["solve_loop"] = s.cand.entry["solve_loop"]
+        out.append(candidate(entry, sizes, "both", dict(group)))
+    return out
+
+
+def tune(case: Case, objective, flags=OPT_FLAGS, fresh: bool = False, progress: Progress | None = None,
+         cache: Cache | None = None, contenders: bool = True) -> Outcome:
+    progress = progress or Progress()
+    cache = cache or Cache()
+    t0 = time.monotonic()
+    cands, untuned = enumerate_space(case)
+    measure.backend(case.target).check(case, objective)
+    outcome = Outcome(case, objective.name, [], {}, untuned)
+    items = [Measured(c) for c in cands]
+    files: dict[str, dict] = {}
+    try:
+        progress.note(f"tune: {case.describe()}; {len(cands)} candidates")
+        for i, m in enumerate(items):
+            progress.step(f"deriving {m.cand.label()}", i, len(items))
+            files[m.cand.name] = _files(m.cand)
+        progress.step("derived", len(items), len(items))
+        verify_all(items, files, cache, flags, case.target, progress)
+        measure_all(case, items, files, cache, flags, progress, fresh, outcome, contenders)
+        joined = [c for c in _join(case, items, objective.part_figure) if c.name not in files]
+        if joined:
+            extra = [Measured(c) for c in joined]
+            for m in extra:
+                files[m.cand.name] = _files(m.cand)
+            verify_all(extra, files, cache, flags, case.target, progress)
+            measure_all(case, extra, files, cache, flags, progress, fresh, outcome, contenders)
+            items += extra
+    except KeyboardInterrupt:
+        outcome.interrupted = True
+    outcome.results = items
+    outcome.seconds = time.monotonic() - t0
+    return outcome
+
