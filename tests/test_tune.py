@@ -146,6 +146,10 @@ def test_tune_on_the_host_end_to_end(tmp_path, capsys):
     assert code == 0, err
     assert "winner" in out and "Pareto front" in out
     data = json.loads((tmp_path / "rep" / "tune.json").read_text())
+    assert (tmp_path / "rep" / "tune.md").read_text().startswith("# luforge tune")
+    pytest.importorskip("matplotlib", reason="the PNG plots need matplotlib (pip install '.[report]')")
+    assert (tmp_path / "rep" / "figure_vs_n.png").stat().st_size > 1000
+    assert (tmp_path / "rep" / "size_vs_speed.png").stat().st_size > 1000
     best = data["ranking"][0]
     assert all(best["figure"]["2"] <= r["figure"]["2"] + r["noise"]["2"] + best["noise"]["2"] for r in data["ranking"])
     written = {o.name: o for o in parse(spec.read_text(), "station.toml")}["est_lu"]
