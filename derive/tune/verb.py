@@ -26,15 +26,16 @@ def register(subparsers) -> None:
                            "luforge tune --n 6 --write station.toml --name est_lu --report tune-out"],
                  handler=run)
     p.add_argument("--n", required=True, metavar="N[,N...]", help="the size or sizes to tune for")
-    p.add_argument("--scalar", default="double", choices=SCALARS, help="scalar type (default double)")
-    p.add_argument("--layout", default="column-major", choices=LAYOUTS, help="storage order (default column-major)")
-    p.add_argument("--pivoting", default="partial", choices=PIVOTING, help="pivoting (default partial)")
+    p.add_argument("--scalar", default="double", choices=SCALARS, help=f"scalar type: {', '.join(SCALARS)} (default double)")
+    p.add_argument("--layout", default="column-major", choices=LAYOUTS, help=f"storage order: {', '.join(LAYOUTS)} (default column-major)")
+    p.add_argument("--pivoting", default="partial", choices=PIVOTING, help=f"pivoting: {', '.join(PIVOTING)} (default partial)")
     p.add_argument("--target", default="host", metavar="TARGET",
                    help="host (wall time) or a target-table row that counts instructions (default host)")
     p.add_argument("--nrhs", default=1, type=int, metavar="K",
                    help="right-hand sides per solve; 0 tunes the factor alone (default 1)")
     p.add_argument("--objective", choices=OBJECTIVES, default=None,
-                   help="what to minimise (default: time on the host, instructions on an emulated target)")
+                   help=f"what to minimise: {', '.join(OBJECTIVES)} (default: time on the host, instructions on an "
+                        f"emulated target)")
     p.add_argument("--weights", metavar="K=W,...", help="for --objective weighted: weights of speed, size, stack "
                                                         "(each figure divided by the best; default speed=1,size=1)")
     p.add_argument("--cflags", metavar="FLAGS", help="compiler flags for every candidate (default -O2 -fPIC)")
