@@ -41,12 +41,25 @@ class Target:
     counting: str = "none"                  # how executed instructions are counted: "none", "plugin" or "icount"
     packages: tuple[str, ...] = ()          # Debian packages that provide the compiler and the runner
     extra: tuple[tuple[str, str], ...] = field(default=())   # row-specific facts (memory map, machine) by name
+    opt: tuple[str, ...] = ("-O2",)         # optimisation the kernel is checked and measured with
+    startup: str = ""                       # bare images: startup file in templates/targets/ (vector table, reset)
+    memory: tuple[int, int, int, int] = (0, 0, 0, 0)   # bare images: code origin and length, RAM origin and length
+    max_n: int = 64                         # largest order whose test matrices fit the image's RAM
+    paint_bytes: int = 16384                # stack painted below the driver's frame to measure what a call uses
+    float_mnemonics: tuple[str, ...] = ()   # disassembler mnemonic prefixes counted as floating-point instructions
+    tools: str = ""                         # binutils prefix for size, nm and objdump ("" for the host's)
+    runtime_missing: tuple[str, ...] = ()   # scalars whose software runtime the toolchain does not ship
+    timeout: float = 300.0                  # seconds one image may run
 
     def __post_init__(self) -> None:
         if self.image not in ("hosted", "bare"):
             raise ValueError(f"target {self.name}: image must be hosted or bare")
         if self.counting not in ("none", "plugin", "icount"):
             raise ValueError(f"target {self.name}: counting must be none, plugin or icount")
+        if self.image == "bare" and (not self.startup or not all(self.memory[1::2])):
+            raise ValueError(f"target {self.name}: a bare image needs a startup file and a memory map")
+        if self.max_n < 1 or self.paint_bytes % 4:
+            raise ValueError(f"target {self.name}: max_n must be >= 1 and paint_bytes a multiple of 4")
         if self.vector_bytes < 0:
             raise ValueError(f"target {self.name}: vector_bytes must be >= 0")
 
@@ -59,9 +72,58 @@ class Target:
 # L1 and an mc x kc panel of A in L2 (common practice). Tuned figures replace these as they are measured.
 _SCALAR_C = (("double", Blocking(4, 4, 64, 128, 512)), ("float", Blocking(4, 4, 64, 128, 512)))
 
+_QEMU_BARE = ("-semihosting-config", "enable=on,target=native", "-nographic", "-monitor", "none",
+              "-serial", "none")
+_M_PROFILE = ("-mthumb", "-ffreestanding")
+_ARM_EABI = dict(cc=("arm-none-eabi-gcc",), tools="arm-none-eabi-", image="bare", startup="cortex-m.S",
+                 counting="plugin", float_mnemonics=("v",), opt=("-Os",), ldflags=("-nostartfiles",),
+                 packages=("gcc-arm-none-eabi", "libnewlib-arm-none-eabi", "qemu-system-arm"))
+# mps2 boards: code in SSRAM1 at 0, data in SSRAM2/3 at 0x20000000 (QEMU's mps2 machines, 4 MB each).
+_MPS2 = (0x0, 0x400000, 0x20000000, 0x400000)
+# RISC-V names every float instruction with a leading f (fadd.s, flw, fmadd.s, fcvt, fmv, feq, fsgnj).
+_RV_FLOAT = ("f",)
+# AArch64: the scalar float data-processing mnemonics; loads and stores of s/d registers are not counted.
+_A64_FLOAT = ("f", "scvtf", "ucvtf")
+
 TARGETS: dict[str, Target] = {t.name: t for t in (
     Target("generic", "portable C99 for any compiler and core; built and run on this machine", 0, _SCALAR_C),
+    Target("host", "this machine, natively", 0, _SCALAR_C, packages=("gcc",)),
+    Target("cortex-m4f", "Arm Cortex-M4 with single-precision FPU, bare metal on QEMU mps2-an386", 0, _SCALAR_C,
+           cflags=("-mcpu=cortex-m4", "-mfpu=fpv4-sp-d16", "-mfloat-abi=hard", *_M_PROFILE), native=("float",),
+           runner=("qemu-system-arm", "-M", "mps2-an386", *_QEMU_BARE, "-kernel", "{image}"), memory=_MPS2,
+           **_ARM_EABI),
+    Target("cortex-m7", "Arm Cortex-M7 with double-precision FPU, bare metal on QEMU mps2-an500", 0, _SCALAR_C,
+           cflags=("-mcpu=cortex-m7", "-mfpu=fpv5-d16", "-mfloat-abi=hard", *_M_PROFILE),
+           runner=("qemu-system-arm", "-M", "mps2-an500", *_QEMU_BARE, "-kernel", "{image}"), memory=_MPS2,
+           **_ARM_EABI),
+    # micro:bit (nRF51822): 256 KB flash at 0, 16 KB RAM at 0x20000000; n <= 16 keeps a double test case with
+    # its canaries and right-hand sides, the copy of the factors and a 2 KB painted stack inside that RAM.
+    Target("cortex-m0", "Arm Cortex-M0 without FPU (libgcc software float), bare metal on QEMU microbit", 0,
+           _SCALAR_C, cflags=("-mcpu=cortex-m0", "-mfloat-abi=soft", *_M_PROFILE), native=(),
+           runner=("qemu-system-arm", "-M", "microbit", *_QEMU_BARE, "-kernel", "{image}"),
+           memory=(0x0, 0x40000, 0x20000000, 0x4000), max_n=16, paint_bytes=2048, **_ARM_EABI),
+    # Debian's riscv64 gcc makes position-independent code by default, and ships no rv32 libgcc: the image is
+    # linked without any runtime library, so double (software) kernels cannot be linked for this row.
+    Target("rv32imafc", "RISC-V RV32IMAFC, single-precision FPU, bare metal on QEMU virt", 0, _SCALAR_C,
+           cc=("riscv64-linux-gnu-gcc",), tools="riscv64-linux-gnu-",
+           cflags=("-march=rv32imafc_zicsr", "-mabi=ilp32f", "-mcmodel=medany", "-fno-pie", "-ffreestanding"),
+           ldflags=("-no-pie", "-nostdlib", "-nostartfiles", "-Wl,--build-id=none"), native=("float",),
+           image="bare", startup="riscv.S", memory=(0x80000000, 0x400000, 0x80400000, 0x400000),
+           runner=("qemu-system-riscv32", "-M", "virt", "-bios", "none", *_QEMU_BARE, "-kernel", "{image}"),
+           counting="plugin", float_mnemonics=_RV_FLOAT, opt=("-Os",), runtime_missing=("double",),
+           packages=("gcc-riscv64-linux-gnu", "qemu-system-misc")),
+    Target("aarch64-linux", "64-bit Arm Linux, static, on qemu-aarch64 (user mode)", 0, _SCALAR_C,
+           cc=("aarch64-linux-gnu-gcc",), tools="aarch64-linux-gnu-", ldflags=("-static",),
+           runner=("qemu-aarch64", "{image}"), counting="plugin", float_mnemonics=_A64_FLOAT,
+           packages=("gcc-aarch64-linux-gnu", "libc6-dev-arm64-cross", "qemu-user")),
+    Target("rv64gc-linux", "64-bit RISC-V Linux, static, on qemu-riscv64 (user mode)", 0, _SCALAR_C,
+           cc=("riscv64-linux-gnu-gcc",), tools="riscv64-linux-gnu-", ldflags=("-static",),
+           runner=("qemu-riscv64", "{image}"), counting="plugin", float_mnemonics=_RV_FLOAT,
+           packages=("gcc-riscv64-linux-gnu", "libc6-dev-riscv64-cross", "qemu-user")),
 )}
+
+# The rows `verify --target all` and `report` go through: every row with a place to build and run.
+CHECK_ROWS = ("host", "cortex-m4f", "cortex-m7", "cortex-m0", "rv32imafc", "aarch64-linux", "rv64gc-linux")
 
 
 def get(name: str) -> Target:
