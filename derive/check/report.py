@@ -1,0 +1,237 @@
+"""`luforge report`: per kernel and target row, bytes linked for factor alone and factor + solve, worst-case stack
+from the compiler's call graph checked against the painted stack, instructions counted on the emulator, runtime."""
+from __future__ import annotations
+
+import dataclasses
+import re
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from derive import __version__
+from derive.check import cross, ondevice
+from derive.options import KernelOptions
+from derive.printers.emit import emit_kernel
+from derive.targets.storage import SCALARS
+from derive.targets.table import Target
+
+DEFAULT_ORDERS = (4, 8, 16)
+
+
+@dataclass
+class Bytes:
+    text: int
+    data: int
+    bss: int
+
+    def __sub__(self, other: "Bytes") -> "Bytes":
+        return Bytes(self.text - other.text, self.data - other.data, self.bss - other.bss)
+
+
+@dataclass
+class Stack:
+    worst: int                 # bytes along the deepest path of the call graph, known frames only
+    path: list[str]
+    unknown: list[str]         # callees without a frame size (runtime routines, indirect calls)
+    recursive: bool
+    dynamic: bool              # a frame of dynamic size (alloca, VLA)
+    measured: int              # the most the painted stack showed used, over the counted orders
+
+
+@dataclass
+class Entry:
+    kernel: str
+    target: str
+    scalar: str
+    factor: Bytes
+    factor_solve: Bytes
+    factor_stack: Stack
+    solve_stack: Stack
+    instructions: dict[int, tuple[int, int]]        # n -> (factor instructions, of them floating point)
+    solve_instructions: dict[int, tuple[int, int]]  # n -> (solve of 2 right-hand sides, floating point)
+    runtime: list[str]                              # runtime routines the kernel calls
+    runtime_bytes: int                              # code and data of the library members linked for them
+    warnings: list[str] = field(default_factory=list)
+    problems: list[str] = field(default_factory=list)
+
+
+def _probe(o: KernelOptions, t: Target, factor: bool, solve: bool) -> cross.Image:
+    env = cross.jinja2.Environment(loader=cross.jinja2.FileSystemLoader(str(cross.TEMPLATES)),
+                                   keep_trailing_newline=True, undefined=cross.jinja2.StrictUndefined)
+    abi = ondevice.abi_of(o)
+    probe = env.get_template("probe.c.j2").render(
+        version=__version__, name=o.name, target=t.name, real=SCALARS[o.scalar].c_type, factor=factor,
+        solve=solve, factor_call=f"{o.name}({abi.factor_args})", solve_call=f"{o.name}_solve({abi.solve_args})")
+    files = dict(emit_kernel(o).files)
+    sources = {f"{o.name}.c": files[f"{o.name}.c"], f"{o.name}.h": files[f"{o.name}.h"], "luforge_probe.c": probe}
+    return cross.build_image(t, o.name, sources, f"{o.name}.c", f"probe{int(factor)}{int(solve)}")
+
+
+def size_of(img: cross.Image) -> Bytes:
+    out = cross._run([cross.tool(img.target, "size"), str(img.elf)], img.workdir, "size").stdout.splitlines()
+    text, data, bss = (int(x) for x in out[1].split()[:3])
+    return Bytes(text, data, bss)
+
+
+_MEMBER = re.compile(r"^(\S+\.a\(\S+\))")
+_INPUT = re.compile(r"^\s*(\S+)?\s+0x([0-9a-f]+)\s+0x([0-9a-f]+)\s+(\S+\.a\(\S+\))\s*$")
+
+
+def archive_bytes(img: cross.Image) -> dict[str, int]:
+    """Bytes of each library member (archive(member)) linked into an image's allocated sections, from the map."""
+    text = (img.workdir / f"{img.elf.stem}.map").read_text(errors="replace")
+    body = text.split("Linker script and memory map", 1)[-1]
+    sizes: dict[str, int] = {}
+    section = ""
+    for line in body.splitlines():
+        m = _INPUT.match(line)
+        if m:
+            name = m.group(1) or section
+            if name.startswith((".text", ".rodata", ".data", ".bss", ".sdata", ".sbss", ".srodata")):
+                sizes[m.group(4)] = sizes.get(m.group(4), 0) + int(m.group(3), 16)
+        elif line.startswith(" .") and len(line.split()) == 1:
+            section = line.split()[0]   # a long input section name: its address and size follow on the next line
+    return sizes
+
+
+def undefined(img: cross.Image) -> list[str]:
+    out = cross._run([cross.tool(img.target, "nm"), "-u", str(img.kernel_obj)], img.workdir, "nm").stdout
+    return sorted({line.split()[-1] for line in out.splitlines() if line.strip()})
+
+
+_NODE = re.compile(r'node: \{ title: "([^"]+)" label: "([^"]*)"')
+_EDGE = re.compile(r'edge: \{ sourcename: "([^"]+)" targetname: "([^"]+)"')
+
+
+def call_graph_stack(img: cross.Image, root: str) -> Stack:
+    """Worst stack from `root` over gcc's -fcallgraph-info=su graph (frames as -fstack-usage reports them)."""
+    ci = (img.workdir / f"{img.kernel_obj.stem}.ci").read_text()
+    frame: dict[str, int] = {}
+    dynamic: set[str] = set()
+    for title, label in _NODE.findall(ci):
+        m = re.search(r"\\n(\d+) bytes \(([^)]*)\)", label)
+        if m:
+            frame[title] = int(m.group(1))
+            if "dynamic" in m.group(2):
+                dynamic.add(title)
+    edges: dict[str, list[str]] = {}
+    for src, dst in _EDGE.findall(ci):
+        edges.setdefault(src, []).append(dst)
+    unknown: set[str] = set()
+    recursive = False
+
+    def walk(node: str, on_path: tuple[str, ...]) -> tuple[int, list[str]]:
+        nonlocal recursive
+        if node in on_path:
+            recursive = True
+            return 0, [node + " (recursion)"]
+        if node not in frame:
+            unknown.add(node.split(":")[-1])
+            return 0, [node.split(":")[-1] + " (unknown)"]
+        best, best_path = 0, []
+        for nxt in edges.get(node, []):
+            d, p = walk(nxt, on_path + (node,))
+            if d > best or not best_path:
+                best, best_path = d, p
+        return frame[node] + best, [node.split(":")[-1]] + best_path
+
+    worst, path = walk(root, ())
+    return Stack(worst, path, sorted(unknown), recursive, bool(dynamic & set(path)), 0)
+
+
+def _counts(o: KernelOptions, t: Target, orders, seed: int):
+    """Run the driver on one matrix per order through the counting plugin: per order the factor's and the
+    solve's (instructions, float instructions), minus the empty window's marker overhead; and the results."""
+    cases = ondevice.choose_cases(o, t, np.random.default_rng([seed, 1]), orders=list(orders))
+    img = ondevice.image_for(o, t, cases, tag="count")
+    run = cross.run(img, count=t.counting == "plugin")
+    results = ondevice.parse(o, run.stdout, len(cases))
+    counted = {}, {}
+    if run.windows:
+        base_i, base_f = run.windows[0]
+        for k, c in enumerate(cases):
+            for which, w in enumerate(run.windows[1 + 2 * k:3 + 2 * k]):
+                counted[which][c.n] = (w[0] - base_i, w[1] - base_f)
+    return img, cases, results, counted
+
+
+def report_kernel(o: KernelOptions, t: Target, orders=DEFAULT_ORDERS, seed: int = 20261202) -> Entry:
+    why = cross.supports(t, o.scalar)
+    if why:
+        empty = Stack(0, [], [], False, False, 0)
+        return Entry(o.name, t.name, o.scalar, Bytes(0, 0, 0), Bytes(0, 0, 0), empty, empty, {}, {}, [], 0,
+                     warnings=[f"not built: {why}"])
+    base, only_f, both = _probe(o, t, False, False), _probe(o, t, True, False), _probe(o, t, True, True)
+    img, cases, results, (fcount, scount) = _counts(o, t, orders, seed)
+    row = ondevice.judge(o, t, cases, results)
+    fstack, sstack = call_graph_stack(img, o.name), call_graph_stack(img, f"{o.name}_solve")
+    by_n = {c.n: r for c, r in zip(cases, results)}
+    fstack.measured = max([r.factor_stack for r in by_n.values()] + [0])
+    sstack.measured = max([r.solve_stack for r in by_n.values()] + [0])
+    lib_base, lib_both = archive_bytes(base), archive_bytes(both)
+    pulled = {m: b for m, b in lib_both.items() if m not in lib_base}
+    e = Entry(o.name, t.name, o.scalar, size_of(only_f) - size_of(base), size_of(both) - size_of(base), fstack,
+              sstack, fcount, scount, undefined(both), sum(pulled.values()), problems=list(row.problems))
+    for what, s in (("factor", fstack), ("solve", sstack)):
+        if not s.unknown and not s.recursive and not s.dynamic and s.measured > s.worst:
+            e.problems.append(f"{what}: the painted stack shows {s.measured} bytes used, more than the call "
+                              f"graph's worst case {s.worst}")
+        if s.recursive:
+            e.warnings.append(f"{what}: recursion in the call graph; the worst case is not bounded statically")
+        if s.unknown:
+            e.warnings.append(f"{what}: calls without a known frame ({', '.join(s.unknown)}); the static worst "
+                              f"case leaves them out, the measured figure includes them")
+    if o.scalar not in t.native:
+        msg = f"{o.scalar} on {t.name}: software floating point, +{e.runtime_bytes / 1024:.1f} KB"
+        twin = dataclasses.replace(o, scalar=next(iter(t.native), o.scalar), name=f"{o.name}_twin")
+        n = max(fcount) if fcount else None
+        if twin.scalar != o.scalar and n:
+            tcount = _counts(twin, t, (n,), seed)[3][0]
+            if tcount.get(n):
+                msg += f", ~{fcount[n][0] / tcount[n][0]:.0f}x instructions of {twin.scalar} at n = {n}"
+        e.warnings.append(msg)
+    return e
+
+
+def report(options: list[KernelOptions], targets: list[Target], orders=DEFAULT_ORDERS) -> list[Entry]:
+    return [report_kernel(o, t, orders) for t in targets for o in options]
+
+
+def _b(x: Bytes) -> str:
+    return f"{x.text} / {x.data} / {x.bss}"
+
+
+def _stack(s: Stack) -> str:
+    flag = "+?" if s.unknown else "" + ("rec" if s.recursive else "") + ("dyn" if s.dynamic else "")
+    return f"{s.worst}{flag} ({s.measured})"
+
+
+def markdown(entries: list[Entry], orders=DEFAULT_ORDERS) -> str:
+    head = ["kernel", "target", "factor: code / data / bss", "factor + solve", "stack factor: static (measured)",
+            "stack solve"] + [f"instructions n = {n} (float)" for n in orders] + ["runtime routines"]
+    lines = ["| " + " | ".join(head) + " |", "|" + "---|" * len(head)]
+    notes = []
+    for e in entries:
+        counts = [f"{e.instructions[n][0]:,} ({e.instructions[n][1]:,})" if n in e.instructions else "-"
+                  for n in orders]
+        runtime = ", ".join(e.runtime) + (f" ({e.runtime_bytes} B)" if e.runtime_bytes else "")
+        lines.append("| " + " | ".join([e.kernel, e.target, _b(e.factor), _b(e.factor_solve), _stack(e.factor_stack),
+                                         _stack(e.solve_stack), *counts, runtime or "none"]) + " |")
+        notes += [f"- {e.kernel} on {e.target}: warning: {w}" for w in e.warnings]
+        notes += [f"- {e.kernel} on {e.target}: PROBLEM: {p}" for p in e.problems]
+    legend = ("\nBytes as linked with --gc-sections (the image with the calls minus the image without them). Stack: "
+              "the deepest path of gcc's call graph (-fstack-usage frames; +? when a callee's frame is unknown), "
+              "in parentheses the most a painted stack showed used. Instructions: executed by the factor on one "
+              "matrix of order n, counted by a QEMU TCG plugin; in parentheses those with a floating-point "
+              "mnemonic.\n")
+    return "\n".join(lines) + "\n" + legend + ("\n" + "\n".join(notes) + "\n" if notes else "")
+
+
+def as_json(entries: list[Entry]) -> list[dict]:
+    out = []
+    for e in entries:
+        d = dataclasses.asdict(e)
+        d["instructions"] = {str(n): {"total": v[0], "float": v[1]} for n, v in e.instructions.items()}
+        d["solve_instructions"] = {str(n): {"total": v[0], "float": v[1]} for n, v in e.solve_instructions.items()}
+        out.append(d)
+    return out
