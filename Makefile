@@ -7,7 +7,7 @@ SPEC   := generated/kernels.toml
 # regeneration checks need only jinja2: use the venv when it exists, else the system Python
 GENPY  := $(shell [ -x $(BIN)/python ] && echo $(BIN)/python || echo $(PYTHON))
 
-.PHONY: venv demo test check-generated regenerate golden bench clean
+.PHONY: venv demo test target-check check-generated regenerate golden bench clean
 
 $(STAMP): pyproject.toml setup.py
 	$(PYTHON) -m venv $(VENV)
@@ -25,6 +25,10 @@ demo: $(STAMP)
 
 test: $(STAMP)
 	$(BIN)/python -m pytest -q -n 2 tests
+
+# every catalogue kernel cross-built, run and judged on every row of the target table (emulated where needed)
+target-check: $(STAMP)
+	$(BIN)/luforge verify $(SPEC) --target all
 
 # generated/ must be exactly what the generator makes from its spec
 check-generated:

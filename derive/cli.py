@@ -16,6 +16,7 @@ VERBS = (
     "derive.verbs.generate",
     "derive.verbs.verify",
     "derive.tune.verb",
+    "derive.verbs.report",
 )
 
 

@@ -9,7 +9,7 @@ import numpy as np
 from derive import __version__
 from derive.check import cross
 from derive.check.accuracy import column_dominant, componentwise_ratio, factor_ratio, solve_ratio
-from derive.check.harness import CANARY, GUARD, Placed, place
+from derive.check.harness import GUARD, Placed, place
 from derive.check.verify import THRESHOLD, Row, sizes_for
 from derive.options import KernelOptions
 from derive.printers.emit import emit_kernel
@@ -282,5 +282,40 @@ def host_kernels(options: list[KernelOptions]) -> dict:
     return {o.name: CKernel(mod, o) for o in options}
 
 
-__all__ = ["Abi", "abi_of", "Case", "choose_cases", "data_c", "driver_c", "parse", "judge", "check_on",
-           "image_for", "host_kernels", "TargetRow", "CANARY"]
+
+
+def verify_targets(options: list[KernelOptions], targets: list[Target], seed: int = 20261202, per_size: int = 2,
+                   jobs: int | None = None) -> list[TargetRow]:
+    """Every kernel on every row, in parallel (each run is a compiler or emulator process); the same seeds give
+    the same matrices on every row, so each row is compared with the same host results."""
+    import os
+    from concurrent.futures import ThreadPoolExecutor
+    for t in targets:
+        cross.require(t)
+    host = host_kernels(options)
+    pairs = [(t, k, o) for t in targets for k, o in enumerate(options)]
+    with ThreadPoolExecutor(jobs or os.cpu_count() or 1) as pool:
+        return list(pool.map(lambda p: check_on(p[2], p[0], np.random.default_rng([seed, p[1]]), per_size,
+                                                host[p[2].name]), pairs))
+
+
+def table(rows: list[TargetRow]) -> str:
+    head = ("target", "kernel", "sizes", "matrices", "factor ratio", "componentwise", "solve ratio",
+            "stack f/s (painted)", "bits = host", "result")
+    body = [(r.target, r.name, f"{r.sizes[0]}..{r.sizes[-1]}" if r.sizes else "-", str(r.matrices),
+             f"{r.worst_factor:.3f}", f"{r.worst_componentwise:.3f}", f"{r.worst_solve:.3f}",
+             f"{r.max_factor_stack}/{r.max_solve_stack}", "yes" if r.bit_identical else "NO",
+             "not run" if r.notes and not r.matrices else "pass" if r.passed else "FAIL") for r in rows]
+    widths = [max(len(x) for x in col) for col in zip(head, *body)]
+    fmt = "  ".join(f"{{:<{w}}}" for w in widths)
+    out = [fmt.format(*row).rstrip() for row in (head, tuple("-" * w for w in widths), *body)]
+    out += [f"{r.target} {r.name}: {p}" for r in rows for p in r.problems]
+    notes: dict[str, list[str]] = {}
+    for r in rows:
+        for p in r.notes:
+            notes.setdefault(f"{r.target}: {p}", []).append(r.name)
+    out += [f"{note} ({', '.join(names)})" for note, names in notes.items()]
+    out.append(f"thresholds: factor and solve ratios < {THRESHOLD:g} (LAPACK TESTING/dtest.in), componentwise "
+               f"<= 1 (Higham 2002, Thm 9.3); bits = host: factors and solutions equal, bit for bit, to the host "
+               f"build's")
+    return "\n".join(out) + "\n"

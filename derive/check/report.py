@@ -67,31 +67,42 @@ def _probe(o: KernelOptions, t: Target, factor: bool, solve: bool) -> cross.Imag
     return cross.build_image(t, o.name, sources, f"{o.name}.c", f"probe{int(factor)}{int(solve)}")
 
 
-def size_of(img: cross.Image) -> Bytes:
-    out = cross._run([cross.tool(img.target, "size"), str(img.elf)], img.workdir, "size").stdout.splitlines()
-    text, data, bss = (int(x) for x in out[1].split()[:3])
-    return Bytes(text, data, bss)
+_INPUT = re.compile(r"^ (\S+)?\s+0x([0-9a-f]+)\s+0x([0-9a-f]+)\s+(\S+\.(?:o|a\(\S+\)))\s*$")
+_KIND = ((".text", "text"), (".rodata", "text"), (".srodata", "text"), (".data", "data"), (".sdata", "data"),
+         (".bss", "bss"), (".sbss", "bss"), ("COMMON", "bss"))
 
 
-_MEMBER = re.compile(r"^(\S+\.a\(\S+\))")
-_INPUT = re.compile(r"^\s*(\S+)?\s+0x([0-9a-f]+)\s+0x([0-9a-f]+)\s+(\S+\.a\(\S+\))\s*$")
-
-
-def archive_bytes(img: cross.Image) -> dict[str, int]:
-    """Bytes of each library member (archive(member)) linked into an image's allocated sections, from the map."""
+def linked_bytes(img: cross.Image) -> dict[str, Bytes]:
+    """Bytes each object or library member (archive(member)) keeps in the image's allocated sections after
+    --gc-sections, from the linker map; read-only data counts as code, as the size tool does."""
     text = (img.workdir / f"{img.elf.stem}.map").read_text(errors="replace")
     body = text.split("Linker script and memory map", 1)[-1]
-    sizes: dict[str, int] = {}
+    out: dict[str, Bytes] = {}
     section = ""
     for line in body.splitlines():
         m = _INPUT.match(line)
         if m:
             name = m.group(1) or section
-            if name.startswith((".text", ".rodata", ".data", ".bss", ".sdata", ".sbss", ".srodata")):
-                sizes[m.group(4)] = sizes.get(m.group(4), 0) + int(m.group(3), 16)
-        elif line.startswith(" .") and len(line.split()) == 1:
+            kind = next((k for prefix, k in _KIND if name.startswith(prefix)), None)
+            if kind:
+                path = m.group(4)
+                key = path if ".a(" in path else path.rsplit("/", 1)[-1]
+                b = out.setdefault(key, Bytes(0, 0, 0))
+                setattr(b, kind, getattr(b, kind) + int(m.group(3), 16))
+        elif line.startswith(" ") and len(line.split()) == 1:
             section = line.split()[0]   # a long input section name: its address and size follow on the next line
-    return sizes
+    return out
+
+
+def kernel_bytes(img: cross.Image, base: dict[str, Bytes]) -> tuple[Bytes, int]:
+    """The kernel object's bytes plus those of the library members the image has and the base probe has not;
+    and the library part alone."""
+    linked = linked_bytes(img)
+    own = linked.get(img.kernel_obj.name, Bytes(0, 0, 0))
+    lib = [b for k, b in linked.items() if ".a(" in k and k not in base]
+    total = Bytes(own.text + sum(b.text for b in lib), own.data + sum(b.data for b in lib),
+                  own.bss + sum(b.bss for b in lib))
+    return total, sum(b.text + b.data + b.bss for b in lib)
 
 
 def undefined(img: cross.Image) -> list[str]:
@@ -168,10 +179,11 @@ def report_kernel(o: KernelOptions, t: Target, orders=DEFAULT_ORDERS, seed: int 
     by_n = {c.n: r for c, r in zip(cases, results)}
     fstack.measured = max([r.factor_stack for r in by_n.values()] + [0])
     sstack.measured = max([r.solve_stack for r in by_n.values()] + [0])
-    lib_base, lib_both = archive_bytes(base), archive_bytes(both)
-    pulled = {m: b for m, b in lib_both.items() if m not in lib_base}
-    e = Entry(o.name, t.name, o.scalar, size_of(only_f) - size_of(base), size_of(both) - size_of(base), fstack,
-              sstack, fcount, scount, undefined(both), sum(pulled.values()), problems=list(row.problems))
+    lib_base = linked_bytes(base)
+    factor, _ = kernel_bytes(only_f, lib_base)
+    factor_solve, runtime_bytes = kernel_bytes(both, lib_base)
+    e = Entry(o.name, t.name, o.scalar, factor, factor_solve, fstack, sstack, fcount, scount, undefined(both),
+              runtime_bytes, problems=list(row.problems))
     for what, s in (("factor", fstack), ("solve", sstack)):
         if not s.unknown and not s.recursive and not s.dynamic and s.measured > s.worst:
             e.problems.append(f"{what}: the painted stack shows {s.measured} bytes used, more than the call "
@@ -212,6 +224,10 @@ def markdown(entries: list[Entry], orders=DEFAULT_ORDERS) -> str:
     lines = ["| " + " | ".join(head) + " |", "|" + "---|" * len(head)]
     notes = []
     for e in entries:
+        if e.warnings and e.warnings[0].startswith("not built"):
+            lines.append("| " + " | ".join([e.kernel, e.target, *["-"] * (len(head) - 3), "not built"]) + " |")
+            notes.append(f"- {e.kernel} on {e.target}: {e.warnings[0]}")
+            continue
         counts = [f"{e.instructions[n][0]:,} ({e.instructions[n][1]:,})" if n in e.instructions else "-"
                   for n in orders]
         runtime = ", ".join(e.runtime) + (f" ({e.runtime_bytes} B)" if e.runtime_bytes else "")
@@ -219,7 +235,8 @@ def markdown(entries: list[Entry], orders=DEFAULT_ORDERS) -> str:
                                          _stack(e.solve_stack), *counts, runtime or "none"]) + " |")
         notes += [f"- {e.kernel} on {e.target}: warning: {w}" for w in e.warnings]
         notes += [f"- {e.kernel} on {e.target}: PROBLEM: {p}" for p in e.problems]
-    legend = ("\nBytes as linked with --gc-sections (the image with the calls minus the image without them). Stack: "
+    legend = ("\nBytes: the kernel's sections and the library members they pull in, as linked with --gc-sections "
+              "(read-only data counted as code). Stack: "
               "the deepest path of gcc's call graph (-fstack-usage frames; +? when a callee's frame is unknown), "
               "in parentheses the most a painted stack showed used. Instructions: executed by the factor on one "
               "matrix of order n, counted by a QEMU TCG plugin; in parentheses those with a floating-point "
