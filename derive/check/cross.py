@@ -5,6 +5,7 @@ from __future__ import annotations
 import os
 import shutil
 import subprocess
+import tempfile
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -167,26 +168,26 @@ def run(img: Image, count: bool = False) -> Run:
     """Run an image on its row's runner (or natively); with count, through the counting plugin."""
     t = img.target
     cmd = [x.replace("{image}", str(img.elf)) for x in t.runner] or [str(img.elf)]
-    out_file = img.workdir / f"windows.{os.getpid()}.txt"
-    if count:
-        if t.counting != "plugin":
-            raise CrossError(f"target {t.name}: instructions are not counted on this row (counting = {t.counting})")
-        args = [f"out={out_file}", f"begin={img.symbol('luf_mark_begin'):x}",
-                f"end={img.symbol('luf_mark_end'):x}", f"float={':'.join(t.float_mnemonics)}"]
-        cmd[1:1] = ["-plugin", ",".join([str(plugin()), *args])]
-    try:
-        res = subprocess.run(cmd, capture_output=True, text=True, timeout=t.timeout)
-    except subprocess.TimeoutExpired:
-        raise CrossError(f"{t.name}: {img.elf.name} did not finish within {t.timeout:g} s") from None
-    if res.returncode != 0:
-        raise CrossError(f"{t.name}: {img.elf.name} exited with status {res.returncode}"
-                         f"{' (a fault: the startup code reports 99)' if res.returncode == 99 else ''}:\n"
-                         f"{res.stderr.strip()[-2000:]}")
-    windows: list[tuple[int, int]] = []
-    if count:
-        for line in out_file.read_text().splitlines():
-            parts = line.split()
-            if parts[0] == "window":
-                windows.append((int(parts[1]), int(parts[2])))
-        out_file.unlink()
+    if count and t.counting != "plugin":
+        raise CrossError(f"target {t.name}: instructions are not counted on this row (counting = {t.counting})")
+    with tempfile.TemporaryDirectory(prefix="luforge-run-") as tmp:
+        out_file = Path(tmp) / "windows.txt"
+        if count:
+            args = [f"out={out_file}", f"begin={img.symbol('luf_mark_begin'):x}",
+                    f"end={img.symbol('luf_mark_end'):x}", f"float={':'.join(t.float_mnemonics)}"]
+            cmd[1:1] = ["-plugin", ",".join([str(plugin()), *args])]
+        try:
+            res = subprocess.run(cmd, capture_output=True, text=True, timeout=t.timeout)
+        except subprocess.TimeoutExpired:
+            raise CrossError(f"{t.name}: {img.elf.name} did not finish within {t.timeout:g} s") from None
+        if res.returncode != 0:
+            raise CrossError(f"{t.name}: {img.elf.name} exited with status {res.returncode}"
+                             f"{' (a fault: the startup code reports 99)' if res.returncode == 99 else ''}:\n"
+                             f"{res.stderr.strip()[-2000:]}")
+        windows = []
+        if count:
+            for line in out_file.read_text().splitlines():
+                parts = line.split()
+                if parts[0] == "window":
+                    windows.append((int(parts[1]), int(parts[2])))
     return Run(res.stdout, tuple(windows))

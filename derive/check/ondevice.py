@@ -10,7 +10,7 @@ from derive import __version__
 from derive.check import cross
 from derive.check.accuracy import column_dominant, componentwise_ratio, factor_ratio, solve_ratio
 from derive.check.harness import GUARD, Placed, place
-from derive.check.verify import THRESHOLD, Row, sizes_for
+from derive.check.verify import THRESHOLD, sizes_for
 from derive.options import KernelOptions
 from derive.printers.emit import emit_kernel
 from derive.targets.storage import LAYOUTS, SCALARS
@@ -187,12 +187,24 @@ def _canaries_ok(p: Placed, out: np.ndarray) -> bool:
 
 
 @dataclass
-class TargetRow(Row):
+class TargetRow:
+    """One kernel on one row: the worst of each published ratio over the cases, and what went wrong."""
+    name: str
+    sizes: list[int]
+    matrices: int
+    worst_factor: float
+    worst_componentwise: float
+    worst_solve: float
+    problems: list[str]
     target: str = ""
     max_factor_stack: int = 0
     max_solve_stack: int = 0
     bit_identical: bool = True
     notes: list[str] = field(default_factory=list)
+
+    @property
+    def passed(self) -> bool:
+        return not self.problems
 
 
 def judge(o: KernelOptions, t: Target, cases: list[Case], results: list[Result], host=None) -> TargetRow:

@@ -205,8 +205,15 @@ def report_kernel(o: KernelOptions, t: Target, orders=DEFAULT_ORDERS, seed: int 
     return e
 
 
-def report(options: list[KernelOptions], targets: list[Target], orders=DEFAULT_ORDERS) -> list[Entry]:
-    return [report_kernel(o, t, orders) for t in targets for o in options]
+def report(options: list[KernelOptions], targets: list[Target], orders=DEFAULT_ORDERS,
+           jobs: int | None = None) -> list[Entry]:
+    """Every kernel on every row, in parallel: each step is a compiler or emulator process."""
+    import os
+    from concurrent.futures import ThreadPoolExecutor
+    for t in targets:
+        cross.require(t)
+    with ThreadPoolExecutor(jobs or os.cpu_count() or 1) as pool:
+        return list(pool.map(lambda p: report_kernel(p[1], p[0], orders), [(t, o) for t in targets for o in options]))
 
 
 def _b(x: Bytes) -> str:
