@@ -108,8 +108,9 @@ def measure_all(case: Case, items: list[Measured], files: dict[str, dict], cache
         st = None if fresh else cache.get("static", cache.figure_key(ck, case.target, 0, 0, where))
         if st is None:
             st = backend.static(m.cand.name, files[m.cand.name], flags)
-            cache.put("static", cache.figure_key(ck, case.target, 0, 0, where), st)
-        m.static = st
+            if st is not None:      # None: the backend reports bytes and stack with each measurement
+                cache.put("static", cache.figure_key(ck, case.target, 0, 0, where), st)
+        m.static = dict(st or {})
     for n in case.sizes:
         want = []
         for m in items:
@@ -122,6 +123,9 @@ def measure_all(case: Case, items: list[Measured], files: dict[str, dict], cache
             else:
                 m.figures[n] = got
                 m.cached += 1
+                _statics(m, got)
+                if got.get("problems"):
+                    m.verified, m.problems = False, got["problems"]
         ckey = cache.figure_key(backend.contender_key(case, flags), case.target, n, case.nrhs, where)
         cont = None if fresh else cache.get("contenders", ckey)
         if not want and (cont is not None or not contenders):
@@ -132,7 +136,10 @@ def measure_all(case: Case, items: list[Measured], files: dict[str, dict], cache
         figs, conts, notes = backend.measure(case, n, [(m.cand.name, files[m.cand.name]) for m, _ in want], flags,
                                              contenders)
         for (m, key) in want:
+            if figs[m.cand.name].get("problems"):
+                m.verified, m.problems = False, figs[m.cand.name]["problems"]   # failed its check on the target
             m.figures[n] = figs[m.cand.name]
+            _statics(m, figs[m.cand.name])
             cache.put("figure", key, figs[m.cand.name])
             outcome.measured_now += 1
         if contenders:
@@ -141,6 +148,12 @@ def measure_all(case: Case, items: list[Measured], files: dict[str, dict], cache
             outcome.contenders.setdefault(tag, {})[n] = fig
         outcome.notes += [x for x in notes if x not in outcome.notes]
         progress.step(f"measured n = {n}", 1, 1)
+
+
+def _statics(m: Measured, fig: dict) -> None:
+    for k in ("bytes", "stack"):
+        if k in fig and k not in m.static:
+            m.static[k] = fig[k]
 
 
 def _join(case: Case, items: list[Measured], part_figure) -> list[Candidate]:

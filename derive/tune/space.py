@@ -169,9 +169,11 @@ def _size_axis(case: Case):
 
 
 def _codegen_target_axis(case: Case):
+    # the portable C, and the row being tuned for when that row specialises code (a vector width or ISA flags)
     from derive.targets import table
     rows = ["generic"]
-    if case.target in table.TARGETS and case.target != "generic":
+    row = table.TARGETS.get(case.target)
+    if row is not None and case.target != "generic" and (row.vector_bytes or row.codegen_flags):
         rows.append(case.target)
     return rows
 
@@ -239,7 +241,18 @@ def enumerate_space(case: Case) -> tuple[list[Candidate], list[str]]:
         for lower, upper in solves:
             sl = lower if lower == upper else {"lower": lower, "upper": upper}
             add({**gbase, **default_factor, "solve_loop": sl}, sizes, "solve", group)
-    return out, untuned
+    # the spec layer is the judge of feasibility: a combination of axes it refuses (say, a recursive panel
+    # with block 1) is not a candidate
+    feasible = []
+    for c in out:
+        try:
+            to_options(c)
+        except specmod.SpecError:
+            continue
+        feasible.append(c)
+    if not feasible:
+        raise CaseError(f"no feasible configuration for {case.describe()}")
+    return feasible, untuned
 
 
 def to_options(c: Candidate, name: str | None = None, spec_name: str = "") -> KernelOptions:
