@@ -84,6 +84,8 @@ class CountingBackend:
     name = "host"
     unit = "ns"
     speed = "time"
+    chunk = None
+    default_nrhs = 1
 
     def __init__(self):
         self.measured = []
@@ -101,10 +103,10 @@ class CountingBackend:
         return "none"
 
     def measure(self, case, n, kernels, flags, contenders=True):
-        self.measured += [(name, n) for name, _ in kernels]
+        self.measured += [(name, n) for name, _, _ in kernels]
         # a deterministic figure from the code length: enough to rank
         return ({name: {"unit": "ns", "factor": float(len(f[f"{name}.c"]) * n), "factor_spread": 0.0,
-                        "solve": float(n), "solve_spread": 0.0} for name, f in kernels}, {}, [])
+                        "solve": float(n), "solve_spread": 0.0} for name, f, _ in kernels}, {}, [])
 
 
 def test_cache_second_run_measures_only_what_is_new(tmp_path, monkeypatch):

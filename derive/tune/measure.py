@@ -21,6 +21,8 @@ class HostBackend:
     unit = "ns"
     speed = "time"
     objectives = ("time", "size", "weighted", "pareto")
+    chunk = None                    # every kernel in one driver: interleaved rounds compare them under one load
+    default_nrhs = 1
 
     def where(self) -> str:
         return machine()
@@ -44,7 +46,7 @@ class HostBackend:
         T = SCALARS[case.scalar].c_type
         pivoted = case.pivoting != "none"
         conts = contmod.available(T, case.layout, (n,), case.nrhs, flags, pivoted) if contenders else []
-        ks = [host.Kernel(name, f[f"{name}.c"], f[f"{name}.h"], case.layout) for name, f in kernels]
+        ks = [host.Kernel(name, f[f"{name}.c"], f[f"{name}.h"], case.layout) for name, f, _ in kernels]
         parts = ("factor", "solve") if case.nrhs > 0 else ("factor",)
 
         def entries_for(name):
@@ -59,19 +61,66 @@ class HostBackend:
             if case.nrhs == 0:
                 out["solve"], out["solve_spread"] = 0.0, 0.0
             return out
-        figs = {name: figures(name) for name, _ in kernels}
+        figs = {name: figures(name) for name, _, _ in kernels}
         cfigs = {c.tag: figures(f"{c.tag}:{n}") for c in conts}
         return figs, cfigs, [ln for ln in notes.splitlines() if ln.strip()]
 
 
-def _target_module():
-    """The targets' cross-build-and-count module, when it is on this tree (it lands in its own issue)."""
-    for name in ("derive.check.cross", "derive.targets.cross", "derive.check.report"):
+class TargetBackend:
+    """An emulated row of the target table: exact instruction counts, linked bytes and worst-case stack, all
+    from the targets' report (derive/check/report.py), which also judges every result on the target."""
+    unit = "instr"
+    speed = "instructions"
+    objectives = ("instructions", "size", "stack", "weighted", "pareto")
+    chunk = 2                       # kernels per step: two emulators at once on two cores, and Ctrl-C loses little
+
+    def __init__(self, row, report, ondevice):
+        self.row, self.report, self.ondevice = row, report, ondevice
+        self.name = row.name
+        self.default_nrhs = ondevice.NRHS
+
+    def where(self) -> str:
+        from derive.check import cross
+        from derive.check.build import compiler_version
+        return repr(self.row) + compiler_version(cross.cc_of(self.row)[0])
+
+    def check(self, case: Case, objective) -> None:
+        if objective.name not in self.objectives:
+            raise CaseError(f"--objective {objective.name} on {self.name}: allowed: {', '.join(self.objectives)} "
+                            f"(wall time is measured on the host)")
+        if case.nrhs not in (0, self.ondevice.NRHS):
+            raise CaseError(f"--nrhs {case.nrhs} on {self.name}: the on-target driver solves with "
+                            f"{self.ondevice.NRHS} right-hand sides; allowed: 0 (factor only) or {self.ondevice.NRHS}")
+        from derive.check import cross
         try:
-            return importlib.import_module(name)
-        except ImportError:
-            continue
-    return None
+            cross.require(self.row)
+        except cross.ToolMissing as e:
+            raise CaseError(f"--target {self.name}: {e}") from None
+
+    def static(self, name: str, files: dict[str, str], flags):
+        return None
+
+    def contender_key(self, case: Case, flags) -> str:
+        return "none"
+
+    def _one(self, o, n):
+        e = self.report.report_kernel(o, self.row, orders=(n,))
+        if e.warnings and e.warnings[0].startswith("not built"):
+            return {"unit": "instr", "problems": [e.warnings[0]], "factor": 0, "solve": 0}
+        fs = e.factor_solve
+        return {"unit": "instr", "factor": e.instructions[n][0], "factor_float": e.instructions[n][1],
+                "solve": e.solve_instructions[n][0], "solve_float": e.solve_instructions[n][1],
+                "factor_spread": 0, "solve_spread": 0, "bytes": fs.text + fs.data + fs.bss,
+                "factor_bytes": e.factor.text + e.factor.data + e.factor.bss,
+                "stack": max(e.factor_stack.worst, e.solve_stack.worst), "warnings": e.warnings,
+                "problems": e.problems}
+
+    def measure(self, case: Case, n: int, kernels, flags, contenders: bool = True):
+        from concurrent.futures import ThreadPoolExecutor
+        with ThreadPoolExecutor(self.chunk) as pool:
+            figs = dict(zip([k[0] for k in kernels], pool.map(lambda k: self._one(k[2], n), kernels)))
+        notes = sorted({w for f in figs.values() for w in f.get("warnings", []) if "software floating" in w})
+        return figs, {}, notes
 
 
 def backend(target: str):
@@ -79,10 +128,13 @@ def backend(target: str):
         return HostBackend()
     from derive.targets import table
     rows = [name for name, t in table.TARGETS.items() if t.counting != "none"]
-    if target not in table.TARGETS or target not in rows:
+    if target not in rows:
         allowed = ", ".join([HOST, *rows])
         raise CaseError(f"--target {target}: allowed: {allowed} (a target-table row that counts instructions)")
-    mod = _target_module()
-    if mod is None:
-        raise CaseError(f"--target {target}: this tree has no cross-build module to run it; allowed: {HOST}")
-    raise CaseError(f"--target {target}: not wired yet; allowed: {HOST}")
+    try:
+        report = importlib.import_module("derive.check.report")
+        ondevice = importlib.import_module("derive.check.ondevice")
+    except ImportError:
+        raise CaseError(f"--target {target}: this tree has no cross-build module to run it; allowed: {HOST}") \
+            from None
+    return TargetBackend(table.TARGETS[target], report, ondevice)

@@ -132,21 +132,24 @@ def measure_all(case: Case, items: list[Measured], files: dict[str, dict], cache
             for tag, fig in (cont or {}).items() if contenders else ():
                 outcome.contenders.setdefault(tag, {})[n] = fig
             continue
-        progress.step(f"measuring {len(want)} kernels at n = {n} on {case.target}", 0, 1)
-        figs, conts, notes = backend.measure(case, n, [(m.cand.name, files[m.cand.name]) for m, _ in want], flags,
-                                             contenders)
-        for (m, key) in want:
-            if figs[m.cand.name].get("problems"):
-                m.verified, m.problems = False, figs[m.cand.name]["problems"]   # failed its check on the target
-            m.figures[n] = figs[m.cand.name]
-            _statics(m, figs[m.cand.name])
-            cache.put("figure", key, figs[m.cand.name])
-            outcome.measured_now += 1
-        if contenders:
-            cache.put("contenders", ckey, conts)
-        for tag, fig in conts.items():
-            outcome.contenders.setdefault(tag, {})[n] = fig
-        outcome.notes += [x for x in notes if x not in outcome.notes]
+        step = backend.chunk or max(len(want), 1)
+        for i in range(0, max(len(want), 1), step):
+            part = want[i:i + step]
+            progress.step(f"measuring at n = {n} on {case.target}", i, len(want))
+            figs, conts, notes = backend.measure(case, n, [(m.cand.name, files[m.cand.name], to_options(m.cand))
+                                                           for m, _ in part], flags, contenders and i == 0)
+            for (m, key) in part:
+                if figs[m.cand.name].get("problems"):
+                    m.verified, m.problems = False, figs[m.cand.name]["problems"]   # failed its check on the target
+                m.figures[n] = figs[m.cand.name]
+                _statics(m, figs[m.cand.name])
+                cache.put("figure", key, figs[m.cand.name])
+                outcome.measured_now += 1
+            if i == 0 and contenders:
+                cache.put("contenders", ckey, conts)
+                for tag, fig in conts.items():
+                    outcome.contenders.setdefault(tag, {})[n] = fig
+            outcome.notes += [x for x in notes if x not in outcome.notes]
         progress.step(f"measured n = {n}", 1, 1)
 
 

@@ -41,7 +41,8 @@ def render(out, objective, show_all: bool = False):
     what = "ns per factor" + (f" + solve ({case.nrhs} rhs)" if case.nrhs else "") if unit == "ns" else \
         "instructions per factor" + (f" + solve ({case.nrhs} rhs)" if case.nrhs else "")
     rows = rank(out.results, sizes, objective)
-    lines = [f"tune: {case.describe()}; objective {objective.name}; figure: {what} (median ± noise)", ""]
+    how = "median ± noise" if unit == "ns" else "exact counts, the same on every run"
+    lines = [f"tune: {case.describe()}; objective {objective.name}; figure: {what} ({how})", ""]
     body = []
     for i, r in enumerate(rows if show_all else rows[:SHOW_ROWS], start=1):
         cells = [str(i), r.m.cand.label().replace(f"scalar={case.scalar} ", "")]

@@ -31,8 +31,9 @@ def register(subparsers) -> None:
     p.add_argument("--pivoting", default="partial", choices=PIVOTING, help=f"pivoting: {', '.join(PIVOTING)} (default partial)")
     p.add_argument("--target", default="host", metavar="TARGET",
                    help="host (wall time) or a target-table row that counts instructions (default host)")
-    p.add_argument("--nrhs", default=1, type=int, metavar="K",
-                   help="right-hand sides per solve; 0 tunes the factor alone (default 1)")
+    p.add_argument("--nrhs", default=None, type=int, metavar="K",
+                   help="right-hand sides per solve; 0 tunes the factor alone (default 1 on the host; on an "
+                        "emulated target, what its on-target driver solves with)")
     p.add_argument("--objective", choices=OBJECTIVES, default=None,
                    help=f"what to minimise: {', '.join(OBJECTIVES)} (default: time on the host, instructions on an "
                         f"emulated target)")
@@ -66,8 +67,9 @@ def run(args) -> int:
     from derive.tune.run import Progress, tune
     from derive.tune.space import Case, CaseError
     try:
-        case = Case(parse_sizes(args.n), args.scalar, args.layout, args.pivoting, args.target, args.nrhs)
-        be = measure.backend(case.target)
+        be = measure.backend(args.target)
+        nrhs = be.default_nrhs if args.nrhs is None else args.nrhs
+        case = Case(parse_sizes(args.n), args.scalar, args.layout, args.pivoting, args.target, nrhs)
         objective = Objective(args.objective or be.speed, case.nrhs,
                               parse_weights(args.weights) if args.objective == "weighted" else {"speed": 1.0})
         if args.weights and args.objective != "weighted":
