@@ -13,6 +13,7 @@ SCALARS = ("double", "float")
 LAYOUTS = ("column-major", "row-major")
 PIVOTING = ("none", "partial")
 MAX_BLOCK = 4096
+MAX_SIZE = 32       # fixed-size kernels: n from 1 to this (larger n gains little over the runtime-n kernels)
 
 C_KEYWORDS = frozenset("""auto break case char const continue default do double else enum extern float for goto if
 inline int long register restrict return short signed sizeof static struct switch typedef union unsigned void
@@ -32,6 +33,7 @@ class KernelOptions:
     solve_lower: tuple[str, ...]    # state words of the forward (unit lower) solve
     solve_upper: tuple[str, ...]    # state words of the backward (upper) solve
     spec: str = ""                  # the spec file's name, for the banner
+    size: int | None = None         # n fixed at compile time (a fixed-size kernel), or None for n an argument
 
     def __post_init__(self) -> None:
         if not is_c_identifier(self.name) or self.name in C_KEYWORDS:
@@ -40,6 +42,8 @@ class KernelOptions:
             raise ValueError("scalar, layout or pivoting out of range")
         if not 1 <= self.block <= MAX_BLOCK:
             raise ValueError(f"block must be from 1 to {MAX_BLOCK}")
+        if self.size is not None and (isinstance(self.size, bool) or not 1 <= self.size <= MAX_SIZE):
+            raise ValueError(f"size must be from 1 to {MAX_SIZE}")
         make(operation.LU, self.invariant)
         make(operation.LU, self.inner)
         make(operation.LOWER_SOLVE, self.solve_lower)
@@ -65,6 +69,8 @@ class KernelOptions:
         """The settings that determine the emitted code (the spec file's name does not)."""
         d = asdict(self)
         d.pop("spec")
+        if d["size"] is None:
+            d.pop("size")   # runtime-n kernels keep the hash they had before fixed sizes existed
         d.update(loop=self.loop, inner_loop=self.inner_loop, lower_loop=self.lower_loop,
                  upper_loop=self.upper_loop)
         return d
@@ -85,10 +91,10 @@ DEFAULT_SOLVE_LOOP = {"column-major": "outer-product", "row-major": "inner-produ
 
 def make_options(name: str, loop: str, block: int = 1, inner: str | None = None, scalar: str = "double",
                  layout: str = "column-major", pivoting: str = "none", solve_loop: str | None = None,
-                 spec: str = "") -> KernelOptions:
+                 spec: str = "", size: int | None = None) -> KernelOptions:
     """Convenience constructor from trade names (the spec reader validates and reports errors itself)."""
     inv = by_name(operation.LU, loop).words
     inn = by_name(operation.LU, inner or loop).words
     sl = solve_loop or DEFAULT_SOLVE_LOOP[layout]
     return KernelOptions(name, inv, block, inn if block > 1 else inv, scalar, layout, pivoting,
-                         by_name(operation.LOWER_SOLVE, sl).words, by_name(operation.UPPER_SOLVE, sl).words, spec)
+                         by_name(operation.LOWER_SOLVE, sl).words, by_name(operation.UPPER_SOLVE, sl).words, spec, size)

@@ -8,10 +8,10 @@ from pathlib import Path
 from derive.engine import operation
 from derive.engine.derivation import derive, pivoting_supported
 from derive.engine.invariants import InfeasibleInvariant, by_name, from_mapping
-from derive.options import (C_KEYWORDS, DEFAULT_SOLVE_LOOP, LAYOUTS, MAX_BLOCK, PIVOTING, SCALARS, KernelOptions,
-                      is_c_identifier)
+from derive.options import (C_KEYWORDS, DEFAULT_SOLVE_LOOP, LAYOUTS, MAX_BLOCK, MAX_SIZE, PIVOTING, SCALARS,
+                            KernelOptions, is_c_identifier)
 
-KERNEL_KEYS = ("name", "loop", "invariant", "block", "inner", "scalar", "layout", "pivoting", "solve_loop")
+KERNEL_KEYS = ("name", "loop", "invariant", "block", "inner", "scalar", "layout", "pivoting", "solve_loop", "size")
 DEFAULT_KEYS = tuple(k for k in KERNEL_KEYS if k != "name")
 TOP_KEYS = ("defaults", "kernel")
 BUILTIN_DEFAULTS = {"block": 1, "scalar": "double", "layout": "column-major", "pivoting": "none"}
@@ -132,6 +132,12 @@ def _kernel(entry: dict, defaults: dict, i: int, spec_name: str, where: str,
         bad("block", f"{block!r} is not allowed; allowed: an integer from 1 (unblocked) to {MAX_BLOCK}")
         block = None
 
+    size = merged.get("size")
+    if size is not None and (isinstance(size, bool) or not isinstance(size, int) or not 1 <= size <= MAX_SIZE):
+        bad("size", f"{size!r} is not allowed; allowed: an integer from 1 to {MAX_SIZE} (n fixed at compile "
+                    f"time), or leave it out for n as an argument")
+        size = None
+
     lu = operation.LU
     inv = None
     if "loop" in merged and "invariant" in merged:
@@ -190,5 +196,5 @@ def _kernel(entry: dict, defaults: dict, i: int, spec_name: str, where: str,
         name=raw_name, invariant=inv.words, block=block, inner=inner.words if block > 1 else inv.words,
         scalar=scalar, layout=layout, pivoting=pivoting,
         solve_lower=by_name(operation.LOWER_SOLVE, lower).words,
-        solve_upper=by_name(operation.UPPER_SOLVE, upper).words, spec=spec_name)
+        solve_upper=by_name(operation.UPPER_SOLVE, upper).words, spec=spec_name, size=size)
 

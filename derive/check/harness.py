@@ -61,6 +61,7 @@ class CKernel:
         self.dtype = np.dtype(SCALARS[options.scalar].numpy)
         self.ctype = SCALARS[options.scalar].c_type
         self.pivoted = options.pivoting != "none"
+        self.fixed = options.size is not None     # fixed-size ABI: no n argument
         self._factor = getattr(self.lib, options.name)
         self._solve = getattr(self.lib, options.name + "_solve")
 
@@ -72,7 +73,10 @@ class CKernel:
         n = a.shape[0]
         lda = lda or max(1, n)
         placed, canary = place(np.asarray(a, dtype=self.dtype), lda, self.o.layout, self.dtype)
-        args = [n, self.ptr(placed.buf, placed.offset, self.ctype), lda]
+        if self.fixed and n != self.o.size:
+            raise ValueError(f"{self.o.name} is a fixed-size kernel for n = {self.o.size}, not {n}")
+        args = [] if self.fixed else [n]
+        args += [self.ptr(placed.buf, placed.offset, self.ctype), lda]
         piv = None
         if self.pivoted:
             piv = np.full(n + 2 * GUARD, -12345, dtype=np.intc)
@@ -93,7 +97,8 @@ class CKernel:
         ldb = ldb or max(1, lead_b)
         pl, lcan = place(np.asarray(lu, dtype=self.dtype), lda, self.o.layout, self.dtype)
         pb, bcan = place(np.asarray(b, dtype=self.dtype), ldb, self.o.layout, self.dtype)
-        args = [n, nrhs, self.ptr(pl.buf, pl.offset, f"const {self.ctype}"), lda]
+        args = [nrhs] if self.fixed else [n, nrhs]
+        args += [self.ptr(pl.buf, pl.offset, f"const {self.ctype}"), lda]
         if self.pivoted:
             piv = np.full(n + 2 * GUARD, -12345, dtype=np.intc)
             piv[GUARD:GUARD + n] = np.asarray(ipiv, dtype=np.intc)

@@ -44,7 +44,7 @@ def check_kernel(ck: CKernel, py, o: KernelOptions, rng, per_size: int = 2) -> R
     dtype = ck.dtype
     problems: list[str] = []
     wf = wc = ws = 0.0
-    sizes = sizes_for(o.block)
+    sizes = [o.size] if o.size is not None else sizes_for(o.block)   # a fixed-size kernel has one n
     for n in sizes:
         for _ in range(per_size):
             a = (rng.standard_normal((n, n)).astype(dtype) if ck.pivoted else column_dominant(n, dtype, rng))

@@ -2,7 +2,8 @@
 additions, divisions; comparisons and interchanges are free). Tests hold these to the closed forms below."""
 from __future__ import annotations
 
-from derive.lowering.ir import (Call, FactorCall, Gemm, Kernel, Loop, PivotCheck, PivotSearch, RowSwaps, Routine, Scale, Trsm)
+from derive.lowering.ir import (Call, FactorCall, Gemm, Kernel, Loop, OneColumn, PivotCheck, PivotSearch, RowSwaps, Routine,
+                               Scale, Step, Trsm)
 
 
 def lu_flops(n: int) -> int:
@@ -24,6 +25,11 @@ def _stmt(s, env: dict[str, int], kernel: Kernel) -> int:
             total += sum(_stmt(t, inner, kernel) for t in s.body)
             k += kb
         return total
+    if isinstance(s, Step):
+        inner = dict(env, **{s.var: s.value, "kb": s.size})
+        return sum(_stmt(t, inner, kernel) for t in s.body)
+    if isinstance(s, OneColumn):
+        return sum(_stmt(t, env, kernel) for t in (s.special if env[s.var] == 1 else s.general))
     size = lambda span: span.size.evaluate(env)  # noqa: E731
     if isinstance(s, Gemm):
         return 2 * size(s.c.rows) * size(s.c.cols) * size(s.a.cols)

@@ -43,6 +43,11 @@ class Lin:
     def evaluate(self, env: dict[str, int]) -> int:
         return self.const + sum(c * env[n] for n, c in self.terms)
 
+    def substitute(self, env: dict[str, int]) -> "Lin":
+        """Replace the names that `env` knows by their values (a partial evaluation)."""
+        rest = tuple((n, c) for n, c in self.terms if n not in env)
+        return Lin(rest, self.const + sum(c * env[n] for n, c in self.terms if n in env))
+
 
 def lin(x: "Lin | str | int") -> Lin:
     return Lin.of(x)
@@ -73,6 +78,7 @@ class Block:
 # -- statements ---------------------------------------------------------------------------------------------------
 
 SHAPES = ("gemm", "gemv_n", "gemv_t", "ger", "dot")
+DIVISIONS = ("divide", "reciprocal")
 
 
 @dataclass(frozen=True, slots=True)
@@ -97,18 +103,27 @@ class Trsm:
     side: str
     uplo: str
     source: str
+    by: str = "divide"      # or "reciprocal": multiply by 1/U(p,p) (see Scale)
 
     def __post_init__(self) -> None:
         if self.side not in ("left", "right") or self.uplo not in ("L", "U"):
             raise ValueError("Trsm side must be left/right and uplo L/U")
+        if self.by not in DIVISIONS:
+            raise ValueError(f"Trsm by {self.by!r} not in {DIVISIONS}")
 
 
 @dataclass(frozen=True, slots=True)
 class Scale:
-    """b := b / pivot, pivot a 1x1 block (a triangular solve with a 1x1 upper factor)."""
+    """b := b / pivot, pivot a 1x1 block (a triangular solve with a 1x1 upper factor). `by` = "reciprocal"
+    multiplies by 1/pivot instead: one more rounding per entry, but the division leaves the critical path."""
     b: Block
     pivot: Block
     source: str
+    by: str = "divide"
+
+    def __post_init__(self) -> None:
+        if self.by not in DIVISIONS:
+            raise ValueError(f"Scale by {self.by!r} not in {DIVISIONS}")
 
 
 @dataclass(frozen=True, slots=True)
@@ -135,6 +150,16 @@ class PivotSearch:
     it unless it is exactly zero (then record the code)."""
     column: Block
     source: str
+    by: str = "branch"
+
+    def __post_init__(self) -> None:
+        if self.by not in CHOICES:
+            raise ValueError(f"PivotSearch by {self.by!r} not in {CHOICES}")
+
+
+# "branch": skip what need not be done (an interchange of a row with itself, a zero pivot's division);
+# "select": the same instruction sequence whatever the values (choices by selects, interchanges always done)
+CHOICES = ("branch", "select")
 
 
 @dataclass(frozen=True, slots=True)
@@ -144,6 +169,11 @@ class RowSwaps:
     cols: Span
     steps: Span
     source: str
+    by: str = "branch"
+
+    def __post_init__(self) -> None:
+        if self.by not in CHOICES:
+            raise ValueError(f"RowSwaps by {self.by!r} not in {CHOICES}")
 
 
 @dataclass(frozen=True, slots=True)
@@ -159,6 +189,32 @@ class Loop:
     def __post_init__(self) -> None:
         if self.step < 1:
             raise ValueError("loop step must be >= 1")
+
+
+@dataclass(frozen=True, slots=True)
+class Step:
+    """One iteration of a loop unrolled for a known extent: the loop variable is `value`, the block size
+    `size`; the body's index ranges are constants. The invariant and the partition stay as comments."""
+    var: str
+    value: int
+    size: int
+    count: int          # steps of the whole unrolled loop, for the comment
+    body: tuple
+    invariant: str
+    partition: str
+
+    def __post_init__(self) -> None:
+        if self.value < 0 or self.size < 1:
+            raise ValueError("a step needs value >= 0 and size >= 1")
+
+
+@dataclass(frozen=True, slots=True)
+class OneColumn:
+    """Run `special` when the size `var` equals 1 (its statements specialised for that), else `general`."""
+    var: str
+    special: tuple
+    general: tuple
+    source: str
 
 
 @dataclass(frozen=True, slots=True)
@@ -212,6 +268,9 @@ def walk(body) -> list:
     out = []
     for s in body:
         out.append(s)
-        if isinstance(s, Loop):
+        if isinstance(s, (Loop, Step)):
             out.extend(walk(s.body))
+        elif isinstance(s, OneColumn):
+            out.extend(walk(s.special))
+            out.extend(walk(s.general))
     return out

@@ -2,8 +2,8 @@
 Language printers (C, Python) build on show_lin; the dump is what `luforge derive --ir` prints."""
 from __future__ import annotations
 
-from derive.lowering.ir import (Block, Call, FactorCall, Gemm, Lin, Loop, PivotCheck, PivotSearch, RowSwaps, Routine, Scale,
-                 Span, Trsm)
+from derive.lowering.ir import (Block, Call, FactorCall, Gemm, Lin, Loop, OneColumn, PivotCheck, PivotSearch, RowSwaps,
+                               Routine, Scale, Span, Step, Trsm)
 
 
 def show_lin(x: Lin, names: dict[str, str] | None = None) -> str:
@@ -37,6 +37,21 @@ def dump_stmt(s, indent: str = "") -> list[str]:
         for t in s.body:
             lines += dump_stmt(t, indent + "  ")
         return lines
+    if isinstance(s, Step):
+        lines = [f"{indent}step {s.var} = {s.value} of {s.count}, size {s.size}",
+                 f"{indent}  invariant {s.invariant}",
+                 f"{indent}  positions {s.partition}"]
+        for t in s.body:
+            lines += dump_stmt(t, indent + "  ")
+        return lines
+    if isinstance(s, OneColumn):
+        lines = [f"{indent}when {s.var} = 1:    [{s.source}]"]
+        for t in s.special:
+            lines += dump_stmt(t, indent + "  ")
+        lines.append(f"{indent}otherwise:")
+        for t in s.general:
+            lines += dump_stmt(t, indent + "  ")
+        return lines
     if isinstance(s, Gemm):
         return [f"{indent}{s.shape}: {show_block(s.c)} -= {show_block(s.a)} * {show_block(s.b)}"
                 f"    [{s.source}]"]
@@ -44,17 +59,20 @@ def dump_stmt(s, indent: str = "") -> list[str]:
         tri = "unit-lower" if s.uplo == "L" else "upper"
         return [f"{indent}trsm {s.side} {tri}: {show_block(s.b)} with {show_block(s.tri)}    [{s.source}]"]
     if isinstance(s, Scale):
-        return [f"{indent}scal: {show_block(s.b)} /= {show_block(s.pivot)}    [{s.source}]"]
+        op = "*= 1 /" if s.by == "reciprocal" else "/="
+        return [f"{indent}scal: {show_block(s.b)} {op} {show_block(s.pivot)}    [{s.source}]"]
     if isinstance(s, PivotCheck):
         return [f"{indent}pivot check: {show_block(s.pivot)} == 0    [{s.source}]"]
     if isinstance(s, PivotSearch):
-        return [f"{indent}pivot: choose in {show_block(s.column)}, interchange, divide below    [{s.source}]"]
+        how = ", by selects" if s.by == "select" else ""
+        return [f"{indent}pivot: choose in {show_block(s.column)}, interchange, divide below{how}    [{s.source}]"]
     if isinstance(s, FactorCall):
         what = "pivoted panel" if s.pivoted else "block"
         return [f"{indent}call {s.routine} on {what} {show_block(s.block)}    [{s.source}]"]
     if isinstance(s, RowSwaps):
+        how = ", always exchanged" if s.by == "select" else ""
         return [f"{indent}interchange rows of {s.matrix}[.]{show_span(s.cols)} for steps "
-                f"{show_span(s.steps)}    [{s.source}]"]
+                f"{show_span(s.steps)}{how}    [{s.source}]"]
     if isinstance(s, Call):
         return [f"{indent}call {s.routine}    [{s.source}]"]
     raise TypeError(type(s))

@@ -27,6 +27,8 @@ class CPrinter:
         self.names: dict[str, str] = {}
         self.routine: Routine | None = None
 
+    loop_vars_in_for = False    # True: a printer declares each loop's variables in its own for statement
+
     # -- expressions -------------------------------------------------------------------------------------------
     def x(self, e: Lin) -> str:
         return show_lin(e, self.names)
@@ -167,7 +169,7 @@ class CPrinter:
             sizes = [p.name for p in r.params if p.kind == "size"]
             out += [f"    const size_t {n.upper()} = (size_t){n};" for n in sizes]
         loops = [s for s in r.body if isinstance(s, Loop)]
-        if loops:
+        if loops and not self.loop_vars_in_for:
             out.append("    size_t k;")
             if any(lp.step > 1 for lp in loops):
                 out.append("    size_t kb;")
@@ -175,7 +177,8 @@ class CPrinter:
             out.append("    int info = 0;")
         if public:
             empty = " || ".join(f"{n.upper()} == 0" for n in self.extent_names(r))
-            out.append(f"    if ({empty}) return 0;")
+            if empty:
+                out.append(f"    if ({empty}) return 0;")
         for s in r.body:
             out += self.visit(s, "    ")
         out.append("    return info;" if r.on_zero == "record" else "    return 0;")
@@ -207,11 +210,13 @@ class CPrinter:
             elif p.kind == "size":
                 out.append(f"    if ({p.name} < 0) return -{pos};")
             elif p.kind in ("matrix", "const_matrix"):
-                cond = " && ".join(f"{e} > 0" for e in dict.fromkeys(ext[p.name]))
-                out.append(f"    if ({p.name} == NULL && {cond}) return -{pos};")
+                # an extent fixed at compile time (always >= 1) needs no test
+                cond = "".join(f" && {e} > 0" for e in dict.fromkeys(ext[p.name]) if not e.isdigit())
+                out.append(f"    if ({p.name} == NULL{cond}) return -{pos};")
             else:
                 rows = ext[r.matrices[0][0]][0]
-                out.append(f"    if ({p.name} == NULL && {rows} > 0) return -{pos};")
+                cond = "" if rows.isdigit() else f" && {rows} > 0"
+                out.append(f"    if ({p.name} == NULL{cond}) return -{pos};")
                 if p.kind == "const_pivots":
                     # pivots handed back in: an entry out of range would make the solve write outside b
                     out += ["    {",

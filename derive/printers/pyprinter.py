@@ -4,8 +4,8 @@ from __future__ import annotations
 
 from derive.engine import operation
 from derive.engine.invariants import TWO_WAY, bind, content_of, summation_set, term_uses
-from derive.lowering.ir import (Block, Call, FactorCall, Gemm, Lin, Loop, PivotCheck, PivotSearch, RowSwaps, Routine, Scale, Span,
-                 Trsm)
+from derive.lowering.ir import (Block, Call, FactorCall, Gemm, Lin, Loop, OneColumn, PivotCheck, PivotSearch, RowSwaps,
+                               Routine, Scale, Span, Step, Trsm)
 from derive.lowering.printing import show_lin
 
 
@@ -46,6 +46,23 @@ class PyPrinter:
             out.append(f"{indent}        check({k} + kb)")
         return out
 
+    def visit_Step(self, s: Step, indent: str) -> list[str]:
+        """One step of a loop unrolled for a fixed size: its index ranges are constants."""
+        out = [f"{indent}# step {s.var} = {s.value} (of {s.count}); loop invariant, {s.invariant}",
+               f"{indent}# partition at this step: {s.partition}"]
+        for t in s.body:
+            out += self.visit(t, indent)
+        if self.routine is not None and self.routine.role == "factor":
+            out += [f"{indent}if check is not None:", f"{indent}    check({s.value + s.size})"]
+        return out
+
+    def visit_OneColumn(self, s: OneColumn, indent: str) -> list[str]:
+        # NumPy gains nothing from the one-column path: the general statements serve every nrhs
+        out = []
+        for t in s.general:
+            out += self.visit(t, indent)
+        return out
+
     def visit_Gemm(self, s: Gemm, indent: str) -> list[str]:
         return [f"{indent}# {s.shape}: from {s.source}",
                 f"{indent}{self.blk(s.c)} -= {self.blk(s.a)} @ {self.blk(s.b)}"]
@@ -55,6 +72,9 @@ class PyPrinter:
         return [f"{indent}# trsm ({s.side}): from {s.source}", f"{indent}{fn}({self.blk(s.tri)}, {self.blk(s.b)})"]
 
     def visit_Scale(self, s: Scale, indent: str) -> list[str]:
+        if s.by == "reciprocal":
+            return [f"{indent}# scal by the reciprocal of the pivot: from {s.source}",
+                    f"{indent}{self.blk(s.b)} *= 1 / {self.elem(s.pivot)}"]
         return [f"{indent}# scal by the pivot: from {s.source}", f"{indent}{self.blk(s.b)} /= {self.elem(s.pivot)}"]
 
     def visit_PivotCheck(self, s: PivotCheck, indent: str) -> list[str]:
@@ -93,7 +113,7 @@ class PyPrinter:
         prologue, known = [], set()
         for matrix, ext in r.extents:
             for d, e in enumerate(ext.split(",")):
-                if e not in known:
+                if e not in known and not e.isdigit():     # a fixed size is a constant in the body
                     known.add(e)
                     prologue.append(f"{e} = {matrix}.shape[{d}]")
         if r.on_zero == "record":

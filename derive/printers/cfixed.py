@@ -1,0 +1,249 @@
+"""C99 printer for fixed-size kernels: the same IR nodes printed as loops with the block bounds written in (constants
+once the size is known), so the compiler sees every trip count; pivoting by selects when the IR asks for it."""
+from __future__ import annotations
+
+from derive.lowering.ir import Block, Lin, OneColumn, PivotCheck, PivotSearch, RowSwaps, Routine, Scale, Step, Trsm
+from derive.printers.cprinter import CPrinter
+from derive.targets.storage import Layout, Scalar
+
+
+def _int(s: str) -> int | None:
+    return int(s) if s.lstrip("-").isdigit() else None
+
+
+def plus(a: str, b: str) -> str:
+    """a + b as C text, folding constants and zeros."""
+    ia, ib = _int(a), _int(b)
+    if ia is not None and ib is not None:
+        return str(ia + ib)
+    if ia == 0:
+        return b
+    if ib == 0:
+        return a
+    return f"{a} + {b}"
+
+
+def for_(var: str, lo: str, hi: str, body: list[str], indent: str, down: bool = False) -> list[str]:
+    """A counted loop over [lo, hi); no loop at all when the bounds are constants giving one trip or none."""
+    il, ih = _int(lo), _int(hi)
+    inner = [f"    {line}" for line in body]
+    if il is not None and ih is not None:
+        if ih <= il:
+            return []
+        if ih - il == 1:
+            return [f"{indent}{{", f"{indent}    const size_t {var} = {lo};"] + [indent + x for x in inner] + \
+                   [f"{indent}}}"]
+    if down:
+        head = f"for (size_t {var} = {hi}; {var}-- > {lo};) {{"
+    else:
+        head = f"for (size_t {var} = {lo}; {var} < {hi}; ++{var}) {{"
+    return [indent + head] + [indent + x for x in inner] + [f"{indent}}}"]
+
+
+class View:
+    """Element (i, j) of a block, or of its transpose: a row-major block is printed as the transpose of the
+    column-major code, so one loop nest serves both layouts with the contiguous index innermost."""
+
+    def __init__(self, printer: "FixedCPrinter", b: Block, transposed: bool):
+        self.p, self.b, self.t = printer, b, transposed
+
+    def __call__(self, i: str, j: str) -> str:
+        if self.t:
+            i, j = j, i
+        p = self.p
+        return p.elem(self.b.matrix, plus(p.x(self.b.rows.lo), i), plus(p.x(self.b.cols.lo), j))
+
+    def rows(self) -> str:
+        return self.p.x((self.b.cols if self.t else self.b.rows).size)
+
+    def cols(self) -> str:
+        return self.p.x((self.b.rows if self.t else self.b.cols).size)
+
+
+class FixedCPrinter(CPrinter):
+    """Prints a fixed-size kernel (derive/lowering/fixed.py). Statements the IR marks `select` run the same
+    instruction sequence whatever the values; `branch` ones call the helpers of the runtime-n kernels."""
+
+    def __init__(self, prefix: str, layout: Layout, scalar: Scalar, size: int):
+        super().__init__(prefix, layout, scalar)
+        self.size = size
+        self.transposed = layout.leading != "rows"     # column-major code is the reference nest
+
+    def elem(self, matrix: str, i: str, j: str) -> str:
+        return f"{self.prefix.upper()}_AT({matrix}, {self.ld(matrix)}, {i}, {j})"
+
+    def view(self, b: Block) -> View:
+        return View(self, b, self.transposed)
+
+    @staticmethod
+    def extent_names(r: Routine) -> list[str]:
+        return [e for e in CPrinter.extent_names(r) if _int(e) is None]
+
+    loop_vars_in_for = True
+
+    # -- structure ---------------------------------------------------------------------------------------------
+    def visit_Loop(self, s, indent: str) -> list[str]:
+        """A loop kept with its extent known: variables declared where they are used."""
+        k, e = s.var, self.x(s.extent)
+        out = [self.comment(f"loop invariant, {s.invariant}", indent),
+               self.comment(f"partition at step {k}: {s.partition}", indent)]
+        if s.step == 1:
+            out.append(f"{indent}for (size_t {k} = 0; {k} < {e}; ++{k}) {{")
+        else:
+            out += [f"{indent}for (size_t {k} = 0; {k} < {e}; {k} += {s.step}) {{",
+                    f"{indent}    const size_t kb = ({e} - {k} < {s.step}) ? {e} - {k} : {s.step};"]
+        for t in s.body:
+            out += self.visit(t, indent + "    ")
+        return out + [f"{indent}}}"]
+
+    def visit_Step(self, s: Step, indent: str) -> list[str]:
+        size = f", kb = {s.size}" if s.size > 1 else ""
+        out = [self.comment(f"step {s.var} = {s.value}{size} (of {s.count}); loop invariant, {s.invariant}", indent),
+               self.comment(f"partition at this step: {s.partition}", indent)]
+        for t in s.body:
+            out += self.visit(t, indent)
+        return out
+
+    def visit_OneColumn(self, s: OneColumn, indent: str) -> list[str]:
+        out = [self.comment(s.source, indent), f"{indent}if ({self.names.get(s.var, s.var)} == 1) {{"]
+        for t in s.special:
+            out += self.visit(t, indent + "    ")
+        out.append(f"{indent}}} else {{")
+        for t in s.general:
+            out += self.visit(t, indent + "    ")
+        return out + [f"{indent}}}"]
+
+    # -- block statements as loops with known bounds -----------------------------------------------------------
+    def visit_Gemm(self, s, indent: str) -> list[str]:
+        T = self.scalar.c_type
+        if self.transposed:     # C' -= B' A' with ' the transpose
+            c, a, b = View(self, s.c, True), View(self, s.b, True), View(self, s.a, True)
+        else:
+            c, a, b = self.view(s.c), self.view(s.a), self.view(s.b)
+        m, n, k = c.rows(), c.cols(), a.cols()
+        if m == "1":
+            # a row of results: each is a dot product along the contiguous index of b
+            body = [f"{T} acc = 0;"] + for_("p", "0", k, [f"acc += {a('0', 'p')} * {b('p', 'j')};"], "") + \
+                   [f"{c('0', 'j')} -= acc;"]
+            lines = for_("j", "0", n, body, "")
+        else:
+            inner = for_("i", "0", m, [f"{c('i', 'j')} -= {a('i', 'p')} * t;"], "")
+            lines = for_("j", "0", n, for_("p", "0", k, [f"const {T} t = {b('p', 'j')};"] + inner, ""), "")
+        return [self.comment(f"{s.shape}: from {s.source}", indent)] + [indent + x for x in lines]
+
+    def _divide(self, by: str, d: str) -> tuple[list[str], str]:
+        """Declarations and the operator that divide by d: a division, or a product with 1/d computed first."""
+        if by == "reciprocal":
+            return [f"const {self.scalar.c_type} r = ({self.scalar.c_type})1 / {d};"], "*= r"
+        return [], f"/= {d}"
+
+    def visit_Trsm(self, s: Trsm, indent: str) -> list[str]:
+        T = self.scalar.c_type
+        b, t = self.view(s.b), self.view(s.tri)
+        # the free index (a column of B for left solves, a row for right ones) goes outermost when it is not the
+        # contiguous one, innermost when it is
+        left = s.side == "left"
+        free_outer = left != self.transposed
+        m = self.x(s.b.rows.size)
+        n = self.x(s.b.cols.size)
+        B = lambda i, j: self.elem(s.b.matrix, plus(self.x(s.b.rows.lo), i), plus(self.x(s.b.cols.lo), j))  # noqa
+        U = lambda i, j: self.elem(s.tri.matrix, plus(self.x(s.tri.rows.lo), i), plus(self.x(s.tri.cols.lo), j))  # noqa
+        del b, t
+        if left and s.uplo == "L":
+            if free_outer:
+                upd = for_("i", "p + 1", m, [f"{B('i', 'j')} -= {U('i', 'p')} * t;"], "")
+                lines = for_("j", "0", n, for_("p", "0", m, [f"const {T} t = {B('p', 'j')};"] + upd, ""), "")
+            else:
+                upd = for_("j", "0", n, [f"{B('i', 'j')} -= t * {B('p', 'j')};"], "")
+                lines = for_("p", "0", m, for_("i", "p + 1", m, [f"const {T} t = {U('i', 'p')};"] + upd, ""), "")
+        elif left:
+            decl, op = self._divide(s.by, U("p", "p"))
+            if free_outer:
+                upd = for_("i", "0", "p", [f"{B('i', 'j')} -= {U('i', 'p')} * t;"], "")
+                body = ["{"] + [f"    {x}" for x in decl + [f"{B('p', 'j')} {op};"]] + ["}"]
+                lines = for_("j", "0", n, for_("p", "0", m, body + [f"const {T} t = {B('p', 'j')};"] + upd, "",
+                                               down=True), "")
+            else:
+                scale = decl + for_("j", "0", n, [f"{B('p', 'j')} {op};"], "")
+                upd = for_("i", "0", "p", [f"const {T} t = {U('i', 'p')};"] +
+                           for_("j", "0", n, [f"{B('i', 'j')} -= t * {B('p', 'j')};"], ""), "")
+                lines = for_("p", "0", m, ["{"] + [f"    {x}" for x in scale] + ["}"] + upd, "", down=True)
+        else:   # right, upper: B := B U^-1 (the factor's L21 from A21 and U11)
+            decl, op = self._divide(s.by, U("p", "p") if free_outer else U("j", "j"))
+            if not free_outer:      # column-major: i (rows of B) contiguous, innermost
+                upd = for_("p", "0", "j", [f"const {T} t = {U('p', 'j')};"] +
+                           for_("i", "0", m, [f"{B('i', 'j')} -= {B('i', 'p')} * t;"], ""), "")
+                scale = decl + for_("i", "0", m, [f"{B('i', 'j')} {op};"], "")
+                lines = for_("j", "0", n, upd + ["{"] + [f"    {x}" for x in scale] + ["}"], "")
+            else:
+                upd = for_("j", "p + 1", n, [f"{B('i', 'j')} -= t * {U('p', 'j')};"], "")
+                body = ["{"] + [f"    {x}" for x in decl + [f"{B('i', 'p')} {op};"]] + ["}"]
+                lines = for_("i", "0", m, for_("p", "0", n, body + [f"const {T} t = {B('i', 'p')};"] + upd, ""),
+                             "")
+        what = "unit-lower" if s.uplo == "L" else "upper"
+        return [self.comment(f"trsm ({s.side}, {what}): from {s.source}", indent)] + [indent + x for x in lines]
+
+    def visit_Scale(self, s: Scale, indent: str) -> list[str]:
+        v = self.view(s.b)
+        d = self.elem(s.pivot.matrix, self.x(s.pivot.rows.lo), self.x(s.pivot.cols.lo))
+        decl, op = self._divide(s.by, d)
+        lines = decl + for_("j", "0", v.cols(), for_("i", "0", v.rows(), [f"{v('i', 'j')} {op};"], ""), "")
+        how = "by the reciprocal of the pivot" if s.by == "reciprocal" else "by the pivot"
+        return [self.comment(f"scal {how}: from {s.source}", indent), f"{indent}{{"] + \
+            [f"{indent}    {x}" for x in lines] + [f"{indent}}}"]
+
+    def visit_PivotCheck(self, s: PivotCheck, indent: str) -> list[str]:
+        piv = self.elem(s.pivot.matrix, self.x(s.pivot.rows.lo), self.x(s.pivot.cols.lo))
+        code = plus(self.x(s.pivot.rows.lo), "1")
+        code = code if _int(code) is not None else f"(int)({code})"
+        return [self.comment(f"exactly zero pivot: stop before dividing by it ({s.source})", indent),
+                f"{indent}if ({piv} == {self.scalar.c_zero}) return {code};"]
+
+    def visit_PivotSearch(self, s: PivotSearch, indent: str) -> list[str]:
+        if s.by != "select":
+            return super().visit_PivotSearch(s, indent)
+        T = self.scalar.c_type
+        r0, c0 = self.x(s.column.rows.lo), self.x(s.column.cols.lo)
+        m = self.x(s.column.rows.size)
+        col = lambda i: self.elem(s.column.matrix, plus(r0, i), c0)  # noqa: E731
+        one = "1.0f" if T == "float" else "1.0"
+        code = plus(r0, "1")
+        lines = [
+            "size_t q = 0;",
+            f"{T} big = {col('0')};",
+            "big = big < 0 ? -big : big;",
+        ] + for_("i", "1", m, [
+            f"{T} v = {col('i')};",
+            "int take;",
+            "v = v < 0 ? -v : v;",
+            "take = v > big;     /* false for a NaN: one is chosen only in first place */",
+            "big = take ? v : big;",
+            "q = take ? i : q;",
+        ], "") + [
+            f"ipiv[{r0}] = (int)({plus(r0, 'q')});",
+            "{",
+            f"    const {T} t = {col('0')};",
+            f"    {col('0')} = {col('q')};",
+            f"    {col('q')} = t;",
+            "}",
+        ]
+        below = for_("i", "1", m, [f"{col('i')} /= s;"], "")
+        lines += ["{", f"    const int zero = {col('0')} == {self.scalar.c_zero};"]
+        if below:
+            lines.append(f"    const {T} s = zero ? {one} : {col('0')};  /* a zero pivot's column divided by 1: "
+                         f"left as it is */")
+        lines += [f"    info = (zero & (info == 0)) ? (int)({code}) : info;"] + [f"    {x}" for x in below] + ["}"]
+        return [self.comment(f"partial pivoting on column {c0}, by selects (the same instructions whatever the "
+                             f"values): from {s.source}", indent), f"{indent}{{"] + \
+            [f"{indent}    {x}" for x in lines] + [f"{indent}}}"]
+
+    def visit_RowSwaps(self, s: RowSwaps, indent: str) -> list[str]:
+        if s.by != "select":
+            return super().visit_RowSwaps(s, indent)
+        T = self.scalar.c_type
+        c0, nc = self.x(s.cols.lo), self.x(s.cols.size)
+        at = lambda i: self.elem(s.matrix, i, plus(c0, "j"))  # noqa: E731
+        swap = for_("j", "0", nc, [f"const {T} t = {at('r')};", f"{at('r')} = {at('q')};", f"{at('q')} = t;"], "")
+        lines = for_("r", self.x(s.steps.lo), self.x(s.steps.hi), ["const size_t q = (size_t)ipiv[r];"] + swap, "")
+        return [self.comment(f"row interchanges, each done even when a row is exchanged with itself: {s.source}",
+                             indent)] + [indent + x for x in lines]
