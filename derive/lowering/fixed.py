@@ -138,24 +138,26 @@ def _fixed_extents(r: Routine, n: int) -> tuple[tuple[str, str], ...]:
     return tuple((m, ",".join(str(n) if e == SIZE else e for e in ext.split(","))) for m, ext in r.extents)
 
 
-def lower_fixed(kernel: Kernel, o: KernelOptions) -> Kernel:
-    """The kernel of `o` (lowered for n as an argument) specialised for n = o.size."""
+def lower_fixed(kernel: Kernel, o: KernelOptions, choices: str = "select") -> Kernel:
+    """The kernel of `o` (lowered for n as an argument) specialised for n = o.size. choices="branch" keeps the
+    pivoting's branches (only `make bench` asks for it, to show what constant time costs)."""
     n = o.size
     assert n is not None
     env = {SIZE: n}
     by_name = {r.name: r for r in kernel.routines}
+    timed = constant_time if choices == "select" else (lambda s: s)
     out = []
     for r in kernel.routines:
         if r.role == "inner":
             # its sizes come from the call sites as constants; its loop stays a loop (one body, several sizes)
-            out.append(dataclasses.replace(r, body=tuple(constant_time(s) for s in r.body)))
+            out.append(dataclasses.replace(r, body=tuple(timed(s) for s in r.body)))
             continue
         if r.role in ("lower", "upper"):
             continue        # inlined into the solve below
         params = tuple(p for p in r.params if p.name != SIZE)
         extents = _fixed_extents(r, n)
         if r.role == "factor":
-            body = tuple(constant_time(s) for s in unroll(r.body, env))
+            body = tuple(timed(s) for s in unroll(r.body, env))
             out.append(dataclasses.replace(r, params=params, body=body, extents=extents))
             continue
         # the solve: the triangular solves inlined, then specialised once more for a single right-hand side
@@ -167,8 +169,8 @@ def lower_fixed(kernel: Kernel, o: KernelOptions) -> Kernel:
             else:
                 general.append(s)
         # several right-hand sides: the loops stay (the compile time goes to the one-column path)
-        general_t = tuple(constant_time(s) for s in unroll(tuple(general), env, 0))
-        special = tuple(constant_time(s) for s in unroll(tuple(general), dict(env, **{RHS: 1})))
+        general_t = tuple(timed(s) for s in unroll(tuple(general), env, 0))
+        special = tuple(timed(s) for s in unroll(tuple(general), dict(env, **{RHS: 1})))
         body = (OneColumn(RHS, special, general_t, "one right-hand side: every column loop has one trip"),)
         out.append(dataclasses.replace(r, params=params, body=body, extents=extents))
     return Kernel(kernel.name, tuple(out))

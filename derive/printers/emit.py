@@ -71,14 +71,14 @@ def _banner(lines: list[str]):
     return render
 
 
-def lower_options(o: KernelOptions) -> Kernel:
+def lower_options(o: KernelOptions, choices: str = "select") -> Kernel:
     """The kernel's routines: lowered for n as an argument, then specialised for a fixed n if it has one."""
     kernel = lower_kernel(o)
-    return lower_fixed(kernel, o) if o.size is not None else kernel
+    return lower_fixed(kernel, o, choices) if o.size is not None else kernel
 
 
-def emit_kernel(o: KernelOptions) -> Emitted:
-    kernel = lower_options(o)
+def emit_kernel(o: KernelOptions, choices: str = "select") -> Emitted:
+    kernel = lower_options(o, choices)
     env = _environment()
     layout, scalar = LAYOUTS[o.layout], SCALARS[o.scalar]
     lines = banner_lines(o, kernel)
