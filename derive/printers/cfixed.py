@@ -206,19 +206,21 @@ class FixedCPrinter(CPrinter):
         r0, c0 = self.x(s.column.rows.lo), self.x(s.column.cols.lo)
         m = self.x(s.column.rows.size)
         col = lambda i: self.elem(s.column.matrix, plus(r0, i), c0)  # noqa: E731
-        one = "1.0f" if T == "float" else "1.0"
         code = plus(r0, "1")
+        # gcc turns `c ? x : y` back into a branch when it thinks that cheaper: the index is chosen by a mask
+        # and the magnitude by the max idiom (one instruction where the core has it), the zero pivot by a sum
         lines = [
             "size_t q = 0;",
             f"{T} big = {col('0')};",
             "big = big < 0 ? -big : big;",
         ] + for_("i", "1", m, [
             f"{T} v = {col('i')};",
-            "int take;",
+            "size_t take;",
             "v = v < 0 ? -v : v;",
-            "take = v > big;     /* false for a NaN: one is chosen only in first place */",
-            "big = take ? v : big;",
-            "q = take ? i : q;",
+            "take = (size_t)0 - (size_t)(v > big);   /* all ones or zero; false for a NaN: one is chosen only "
+            "in first place */",
+            "q ^= (q ^ i) & take;",
+            "big = v > big ? v : big;",
         ], "") + [
             f"ipiv[{r0}] = (int)({plus(r0, 'q')});",
             "{",
@@ -230,9 +232,9 @@ class FixedCPrinter(CPrinter):
         below = for_("i", "1", m, [f"{col('i')} /= s;"], "")
         lines += ["{", f"    const int zero = {col('0')} == {self.scalar.c_zero};"]
         if below:
-            lines.append(f"    const {T} s = zero ? {one} : {col('0')};  /* a zero pivot's column divided by 1: "
+            lines.append(f"    const {T} s = {col('0')} + ({T})zero;  /* a zero pivot's column divided by 1: "
                          f"left as it is */")
-        lines += [f"    info = (zero & (info == 0)) ? (int)({code}) : info;"] + [f"    {x}" for x in below] + ["}"]
+        lines += [f"    info += (zero & (info == 0)) * (int)({code});"] + [f"    {x}" for x in below] + ["}"]
         return [self.comment(f"partial pivoting on column {c0}, by selects (the same instructions whatever the "
                              f"values): from {s.source}", indent), f"{indent}{{"] + \
             [f"{indent}    {x}" for x in lines] + [f"{indent}}}"]
@@ -243,7 +245,17 @@ class FixedCPrinter(CPrinter):
         T = self.scalar.c_type
         c0, nc = self.x(s.cols.lo), self.x(s.cols.size)
         at = lambda i: self.elem(s.matrix, i, plus(c0, "j"))  # noqa: E731
-        swap = for_("j", "0", nc, [f"const {T} t = {at('r')};", f"{at('r')} = {at('q')};", f"{at('q')} = t;"], "")
+        # both entries are read before either is written, so exchanging a row with itself writes it back
+        if _int(nc) is not None:
+            # written out column by column: a loop here is one the vectorizer guards with a test whether the
+            # two rows overlap, a branch on the pivot
+            swap = []
+            for j in range(_int(nc)):
+                x, y = self.elem(s.matrix, "r", plus(c0, str(j))), self.elem(s.matrix, "q", plus(c0, str(j)))
+                swap += [f"{{ const {T} x = {x}, y = {y}; {y} = x; {x} = y; }}"]
+        else:
+            swap = for_("j", "0", nc, [f"const {T} x = {at('r')}, y = {at('q')};", f"{at('q')} = x;",
+                                       f"{at('r')} = y;"], "")
         lines = for_("r", self.x(s.steps.lo), self.x(s.steps.hi), ["const size_t q = (size_t)ipiv[r];"] + swap, "")
         return [self.comment(f"row interchanges, each done even when a row is exchanged with itself: {s.source}",
                              indent)] + [indent + x for x in lines]
