@@ -7,7 +7,7 @@ SPEC   := generated/kernels.toml
 # regeneration checks need only jinja2: use the venv when it exists, else the system Python
 GENPY  := $(shell [ -x $(BIN)/python ] && echo $(BIN)/python || echo $(PYTHON))
 
-.PHONY: venv demo test target-check check-generated regenerate golden bench clean
+.PHONY: venv demo test target-check check-generated regenerate golden bench bench-small clean
 
 $(STAMP): pyproject.toml setup.py
 	$(PYTHON) -m venv $(VENV)
@@ -44,8 +44,13 @@ regenerate:
 golden: $(STAMP)
 	LUFORGE_UPDATE_GOLDEN=1 $(BIN)/python -m pytest -q tests/test_golden.py
 
+# every bench file in one go; each also has its own target (bench-small: small n against Eigen and LAPACK)
 bench: $(STAMP)
 	$(BIN)/python bench/bench.py
+	@for f in bench/small.py bench/batched.py bench/large.py; do [ ! -e $$f ] || $(BIN)/python $$f || exit 1; done
+
+bench-small: $(STAMP)
+	$(BIN)/python bench/small.py
 
 clean:
 	rm -rf $(VENV) build *.egg-info .pytest_cache .hypothesis

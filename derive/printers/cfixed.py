@@ -75,6 +75,12 @@ class FixedCPrinter(CPrinter):
     def view(self, b: Block) -> View:
         return View(self, b, self.transposed)
 
+    def bits(self) -> tuple[str, str, str]:
+        """The unsigned type as wide as the scalar, the mask clearing its sign and the pattern of Inf."""
+        if self.scalar.c_type == "float":
+            return "uint32_t", "0x7fffffffu", "0x7f800000u"
+        return "uint64_t", "0x7fffffffffffffffu", "0x7ff0000000000000u"
+
     @staticmethod
     def extent_names(r: Routine) -> list[str]:
         return [e for e in CPrinter.extent_names(r) if _int(e) is None]
@@ -199,6 +205,14 @@ class FixedCPrinter(CPrinter):
         return [self.comment(f"exactly zero pivot: stop before dividing by it ({s.source})", indent),
                 f"{indent}if ({piv} == {self.scalar.c_zero}) return {code};"]
 
+    def visit_FactorCall(self, s, indent: str) -> list[str]:
+        out = super().visit_FactorCall(s, indent)
+        if s.pivoted:     # the panel's code taken without a branch, like the pivot search's own
+            r0 = self.x(s.block.rows.lo)
+            out = [line.replace(f"if (r != 0 && info == 0) info = r + (int)({r0});",
+                                f"info += ((r != 0) & (info == 0)) * (r + (int)({r0}));") for line in out]
+        return out
+
     def visit_PivotSearch(self, s: PivotSearch, indent: str) -> list[str]:
         if s.by != "select":
             return super().visit_PivotSearch(s, indent)
@@ -207,21 +221,26 @@ class FixedCPrinter(CPrinter):
         m = self.x(s.column.rows.size)
         col = lambda i: self.elem(s.column.matrix, plus(r0, i), c0)  # noqa: E731
         code = plus(r0, "1")
-        # gcc turns `c ? x : y` back into a branch when it thinks that cheaper: the index is chosen by a mask
-        # and the magnitude by the max idiom (one instruction where the core has it), the zero pivot by a sum
+        # Magnitudes compared as integers: the bits of an IEEE number with its sign cleared order like its
+        # magnitude, and a NaN's lie above Inf's. Integer masks and comparisons leave the compiler no select
+        # to turn back into a branch (gcc does that with `c ? x : y` on floats, on AArch64 for one).
+        U, mag, inf = self.bits()
         lines = [
+            f"union {{ {T} f; {U} u; }} e;",
+            f"{U} big;",
             "size_t q = 0;",
-            f"{T} big = {col('0')};",
-            "big = big < 0 ? -big : big;",
+            f"e.f = {col('0')};",
+            f"big = e.u & {mag};     /* a NaN in first place stays first: nothing lies above it */",
         ] + for_("i", "1", m, [
-            f"{T} v = {col('i')};",
-            "size_t take;",
-            "v = v < 0 ? -v : v;",
-            "take = (size_t)0 - (size_t)(v > big);   /* all ones or zero; false for a NaN: one is chosen only "
-            "in first place */",
-            "q ^= (q ^ i) & take;",
-            "big = v > big ? v : big;",
+            f"{U} key, take;",
+            f"e.f = {col('i')};",
+            f"key = e.u & {mag};",
+            f"key &= ({U})0 - ({U})(key <= {inf});   /* a NaN after the first entry counts as zero */",
+            f"take = ({U})0 - ({U})(key > big);     /* all ones or zero: ties go to the first entry */",
+            "q ^= (q ^ i) & (size_t)take;",
+            "big ^= (big ^ key) & take;",
         ], "") + [
+            "(void)big;",
             f"ipiv[{r0}] = (int)({plus(r0, 'q')});",
             "{",
             f"    const {T} t = {col('0')};",
