@@ -6,9 +6,11 @@ import fcntl
 import hashlib
 import importlib.util
 import os
+import shlex
 import shutil
 import subprocess
 import sys
+import tempfile
 from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
@@ -20,16 +22,61 @@ class BuildError(RuntimeError):
     pass
 
 
+_CACHE_ROOT: dict[str, Path] = {}
+
+
 def cache_root() -> Path:
+    """The build cache; when it cannot be written, a temporary directory for this run, said once on stderr."""
     env = os.environ.get("LUFORGE_CACHE")
     if env:
-        return Path(env)
-    base = os.environ.get("XDG_CACHE_HOME") or os.path.join(os.path.expanduser("~"), ".cache")
-    return Path(base) / "luforge"
+        want = Path(env)
+    else:
+        base = os.environ.get("XDG_CACHE_HOME") or os.path.join(os.path.expanduser("~"), ".cache")
+        want = Path(base) / "luforge"
+    key = str(want)
+    if key not in _CACHE_ROOT:
+        try:
+            want.mkdir(parents=True, exist_ok=True)
+            probe = tempfile.NamedTemporaryFile(dir=want, prefix=".probe-")
+            probe.close()
+            _CACHE_ROOT[key] = want
+        except OSError as e:
+            fallback = Path(tempfile.mkdtemp(prefix="luforge-cache-"))
+            print(f"luforge: note: cannot use the build cache {want} ({e.strerror or e}); building in {fallback} "
+                  f"for this run (set LUFORGE_CACHE to a writable directory)", file=sys.stderr)
+            _CACHE_ROOT[key] = fallback
+    return _CACHE_ROOT[key]
+
+
+def compiler_words() -> list[str]:
+    """$CC split into words as a shell would (CC="gcc -O3" is a compiler and a flag), or the system's cc."""
+    env = os.environ.get("CC", "").strip()
+    if env:
+        try:
+            words = shlex.split(env)
+        except ValueError as e:
+            raise BuildError(f"CC={env[:80]!r} cannot be split into words: {e}") from None
+        if words:
+            return words
+    return [shutil.which("cc") or shutil.which("gcc") or "cc"]
 
 
 def compiler() -> str:
-    return os.environ.get("CC") or shutil.which("cc") or shutil.which("gcc") or "cc"
+    return compiler_words()[0]
+
+
+def run_compiler(args: list[str], what: str, **kw) -> subprocess.CompletedProcess:
+    """Run the compiler; a missing compiler or a failed compile is a BuildError naming its first error line."""
+    try:
+        res = subprocess.run(args, capture_output=True, text=True, **kw)
+    except OSError as e:
+        raise BuildError(f"cannot run the compiler {args[0]!r}: {e.strerror or e} (set CC to a C99 compiler)") \
+            from None
+    if res.returncode != 0:
+        lines = [ln for ln in (res.stderr or res.stdout).splitlines() if ln.strip()]
+        first = next((ln for ln in lines if "error" in ln.lower()), lines[0] if lines else "no message")
+        raise BuildError(f"{what} failed with {' '.join(args[:1])}: {first.strip()[:300]}")
+    return res
 
 
 def _digest(*parts: str | bytes) -> str:
@@ -45,8 +92,8 @@ _VERSION_CACHE: dict[str, str] = {}
 
 def compiler_version(cc: str) -> str:
     if cc not in _VERSION_CACHE:
-        out = subprocess.run([cc, "--version"], capture_output=True, text=True)
-        _VERSION_CACHE[cc] = out.stdout.splitlines()[0] if out.returncode == 0 and out.stdout else cc
+        out = run_compiler([cc, "--version"], "asking the compiler its version")
+        _VERSION_CACHE[cc] = out.stdout.splitlines()[0] if out.stdout else cc
     return _VERSION_CACHE[cc]
 
 
@@ -67,7 +114,8 @@ class _Lock:
 
 def compile_object(name: str, c_text: str, h_text: str, flags: tuple[str, ...] = OPT_FLAGS) -> Path:
     """Compile one kernel with the strict flags; returns the cached object file."""
-    cc = compiler()
+    cc, *cc_flags = compiler_words()
+    flags = (*cc_flags, *flags)
     key = _digest(c_text, h_text, cc, compiler_version(cc), *STRICT_FLAGS, *flags)
     root = cache_root() / "obj" / key[:2] / key
     obj = root / f"{name}.o"
@@ -81,10 +129,8 @@ def compile_object(name: str, c_text: str, h_text: str, flags: tuple[str, ...] =
         (src / f"{name}.c").write_text(c_text)
         (src / f"{name}.h").write_text(h_text)
         tmp = root / f".{name}.{os.getpid()}.o"
-        res = subprocess.run([cc, *STRICT_FLAGS, *flags, "-c", str(src / f"{name}.c"), "-o", str(tmp)],
-                             capture_output=True, text=True)
-        if res.returncode != 0:
-            raise BuildError(f"{name}.c does not compile with {' '.join(STRICT_FLAGS)}:\n{res.stderr}")
+        run_compiler([cc, *STRICT_FLAGS, *flags, "-c", str(src / f"{name}.c"), "-o", str(tmp)],
+                     f"compiling {name}.c with {' '.join(STRICT_FLAGS)}")
         os.replace(tmp, obj)
     return obj
 
@@ -92,10 +138,7 @@ def compile_object(name: str, c_text: str, h_text: str, flags: tuple[str, ...] =
 def cdef_of(h_text: str) -> str:
     """The declarations cffi sees: the shipped header run through the C preprocessor, so the tested ABI is
     the shipped ABI."""
-    res = subprocess.run([compiler(), "-E", "-P", "-x", "c", "-"], input=h_text, capture_output=True, text=True)
-    if res.returncode != 0:
-        raise BuildError(f"preprocessing a header failed:\n{res.stderr}")
-    return res.stdout
+    return run_compiler([compiler(), "-E", "-P", "-x", "c", "-"], "preprocessing a header", input=h_text).stdout
 
 
 def build(kernels: list[tuple[str, str, str]], flags: tuple[str, ...] = OPT_FLAGS, jobs: int | None = None):
