@@ -117,7 +117,7 @@ def drift(options: list[KernelOptions], directory: Path, emit=None) -> list[str]
 def sizes_for(block: int, extra: tuple[int, ...] = ()) -> list[int]:
     """Small sizes, the edges of one block, and sizes crossing two block boundaries (n >= 2b + 1, one of them
     not a multiple of b) whatever b is, plus the sizes the user names."""
-    s = {0, 1, 2, 3, 4, 5, 7, 8, 9, 16, 17, 31, 33}
+    s = {0, 1, 2, 3, 4, 5, 7, 8, 9, 16, 17, 31, 33, 48}
     if block > 1:
         s.add(2 * block + 1)      # three block iterations, the last one partial
         if block <= EDGES_UP_TO:
