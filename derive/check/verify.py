@@ -289,7 +289,12 @@ def verify(options: list[KernelOptions], directory: Path | None = None, budget: 
             for o in options:
                 for fname, text in emit_kernel(o).files:
                     (Path(tmp) / fname).write_text(text, encoding="utf-8")
-            return verify(options, Path(tmp), budget, progress)
+            return _verify_in(options, Path(tmp), budget, progress)
+    return _verify_in(options, directory, budget, progress)
+
+
+def _verify_in(options: list[KernelOptions], directory: Path, budget: Budget,
+               progress: Callable[[str], None] | None) -> list[Row]:
     from derive.check.sanitize import sanitize_kernel
     progress = progress or (lambda line: None)
     where = shipped_files(options, directory)
