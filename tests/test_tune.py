@@ -247,3 +247,25 @@ def test_infeasible_request_is_one_line_and_exit_2(argv, says, capsys, tmp_path,
     code, out, err = cli(["tune", *argv], capsys)
     assert code == 2 and says in err and err.count("\n") == 1 and "Traceback" not in err
     assert not (tmp_path / "x.toml").exists()
+
+
+# -- an emulated target: exact counts, the same on every run -------------------------------------------------------
+
+def test_emulated_target_counts_are_exact_and_repeat(tmp_path):
+    """Two candidates measured twice on cortex-m4f through the targets' report: the same instruction counts,
+    bytes and stack each time, so the ranking cannot change from run to run."""
+    from derive.tune.space import CaseError
+    try:
+        backend = measure_mod.backend("cortex-m4f")
+        backend.check(Case((3,), "float", target="cortex-m4f", nrhs=backend.default_nrhs), Objective("instructions"))
+    except CaseError as e:
+        pytest.skip(str(e))
+    case = Case((3,), "float", target="cortex-m4f", nrhs=backend.default_nrhs)
+    cands, _ = enumerate_space(case)
+    two = [c for c in cands if c.entry.get("block") == 1][:2]
+    kernels = [(c.name, dict(emit_kernel(to_options(c)).files), to_options(c)) for c in two]
+    first, _, _ = backend.measure(case, 3, kernels, ())
+    again, _, _ = backend.measure(case, 3, kernels, ())
+    assert first == again
+    for f in first.values():
+        assert not f["problems"] and f["factor"] > 0 and f["solve"] > 0 and f["bytes"] > 0 and f["stack"] > 0
