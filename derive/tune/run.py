@@ -13,7 +13,7 @@ from derive.tune.cache import Cache, code_key
 from derive.tune.space import Candidate, Case, candidate, enumerate_space, to_options
 
 ANCHORS, ANCHOR_WITHIN = 6, 1.25   # cached host leaders re-timed beside new kernels: up to 6, within 25 % of the best
-VERIFY_BATCH = 8     # kernels per cffi module while verifying: small enough that Ctrl-C loses little
+VERIFY_BATCH = 12    # kernels per cffi module while verifying: small enough that Ctrl-C loses little
 
 
 class Progress:

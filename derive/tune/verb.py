@@ -92,8 +92,9 @@ def run(args) -> int:
     text, rows = render(out, objective, show_all=args.all)
     sys.stdout.write(text)
     if out.interrupted:
-        print(f"luforge: interrupted; the {out.measured_now} figures measured so far are kept in the cache",
-              file=sys.stderr)
+        verdicts = sum(1 for m in out.results if m.verified is not None)
+        print(f"luforge: interrupted; the {verdicts} verdicts and {out.measured_now} figures taken so far are kept "
+              f"in the cache (the next run starts from them)", file=sys.stderr)
         return EXIT_INTERRUPTED
     if not rows:
         return fail("no candidate was verified and measured at every size", EXIT_FAILED)
