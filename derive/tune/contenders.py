@@ -1,5 +1,5 @@
-"""Reference contenders timed beside the candidates on the host when their libraries are present: Eigen's
-fixed-size PartialPivLU and LAPACK getrf/getrs (through OpenBLAS). Each copies its input like the kernels do."""
+"""Reference contenders timed beside the candidates on the host when present: Eigen's fixed-size PartialPivLU,
+LAPACK getrf/getrs (through OpenBLAS) and the bench's textbook loop. Each copies its input like the kernels do."""
 from __future__ import annotations
 
 import hashlib
@@ -109,6 +109,39 @@ def lapack(T: str, layout: str, sizes, nrhs: int, pivoted: bool) -> Contender | 
     return Contender("lapack", decls, factor, solve, setup, objects=[], libs=["-lopenblas"])
 
 
+TEXTBOOK = Path(__file__).resolve().parents[2] / "bench" / "small_textbook.c"
+
+
+def textbook(T: str, sizes, nrhs: int, flags: tuple[str, ...], pivoted: bool) -> Contender | None:
+    """The bench's hand-written textbook LU (bench/small_textbook.c, in a source checkout), built with the
+    candidates' flags; None when it is not there or without pivoting."""
+    if not pivoted or not TEXTBOOK.exists():
+        return None
+    from derive.check.build import compiler
+    src = TEXTBOOK.read_text()
+    key = hashlib.sha256((src + compiler() + " ".join(flags)).encode()).hexdigest()[:24]
+    obj = cache_root() / "tune" / "textbook" / f"{key}.o"
+    if not obj.exists():
+        obj.parent.mkdir(parents=True, exist_ok=True)
+        tmp = obj.with_suffix(".tmp.o")
+        res = subprocess.run([compiler(), "-std=c99", *flags, "-I", str(TEXTBOOK.parent), "-c", str(TEXTBOOK), "-o",
+                              str(tmp)], capture_output=True, text=True)
+        if res.returncode != 0:
+            return None
+        tmp.replace(obj)
+    p = "d" if T == "double" else "s"
+    rhs = max(nrhs, 1)
+    decls = (f"int tb_{p}getrf(int, {T} *, int, int *); void tb_{p}getrs(int, const {T} *, int, const int *, {T} *);\n"
+             + "\n".join(f"static {T} tb_lu_{n}[{n * n}]; static int tb_piv_{n}[{n}];" for n in sizes))
+    return Contender(
+        "textbook", decls,
+        factor_body=lambda n: f"memcpy(work, a0_{n}, sizeof a0_{n}); sink += tb_{p}getrf({n}, work, {n}, ipiv_w);",
+        solve_body=lambda n: (f"memcpy(bw, b0_{n}, sizeof b0_{n}); for (int r = 0; r < {rhs}; ++r) "
+                              f"tb_{p}getrs({n}, tb_lu_{n}, {n}, tb_piv_{n}, bw + r * {n});"),
+        setup=lambda n: f"    memcpy(tb_lu_{n}, a0_{n}, sizeof a0_{n}); sink += tb_{p}getrf({n}, tb_lu_{n}, {n}, tb_piv_{n});",
+        objects=[obj], libs=[])
+
+
 def available(T: str, layout: str, sizes, nrhs: int, flags: tuple[str, ...], pivoted: bool) -> list[Contender]:
-    return [c for c in (eigen(T, layout, sizes, nrhs, flags, pivoted), lapack(T, layout, sizes, nrhs, pivoted))
-            if c is not None]
+    return [c for c in (eigen(T, layout, sizes, nrhs, flags, pivoted), lapack(T, layout, sizes, nrhs, pivoted),
+                        textbook(T, sizes, nrhs, flags, pivoted)) if c is not None]
