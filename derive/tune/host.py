@@ -15,6 +15,7 @@ from derive.check.build import BuildError, cdef_of, compile_object, compiler
 from derive.targets.storage import SCALARS
 
 ROUNDS = 15             # interleaved repetitions; the median of 15 is robust to a few disturbed rounds
+# clock: the timing thread's CPU time (CLOCK_THREAD_CPUTIME_ID), not wall time; see now_ns in the driver
 SAMPLE_NS = 200_000     # each sample runs the call enough times to last about this long (timer resolution)
 OPENBLAS_VARS = ("OPENBLAS_CORETYPE", "OPENBLAS_L2_SIZE")
 
@@ -64,10 +65,12 @@ def call_expr(cdef: str, fn: str, args: dict[str, str]) -> str:
 # -- the driver ----------------------------------------------------------------------------------------------------
 
 _MAIN = r"""
+/* the timing thread's CPU time: on a shared machine the time this process spends descheduled while another
+   runs is not the kernel's, and wall time would charge it to whichever candidate was running */
 static unsigned long long now_ns(void)
 {
     struct timespec ts;
-    clock_gettime(CLOCK_MONOTONIC, &ts);
+    clock_gettime(CLOCK_THREAD_CPUTIME_ID, &ts);
     return (unsigned long long)ts.tv_sec * 1000000000ull + (unsigned long long)ts.tv_nsec;
 }
 
