@@ -7,7 +7,7 @@ SPEC   := generated/kernels.toml
 # regeneration checks need only jinja2: use the venv when it exists, else the system Python
 GENPY  := $(shell [ -x $(BIN)/python ] && echo $(BIN)/python || echo $(PYTHON))
 
-.PHONY: venv demo test target-check check-generated regenerate golden bench bench-small clean
+.PHONY: tune-check venv demo test target-check check-generated regenerate golden bench bench-small clean
 
 $(STAMP): pyproject.toml setup.py
 	$(PYTHON) -m venv $(VENV)
@@ -31,6 +31,11 @@ target-check: $(STAMP)
 	$(BIN)/luforge verify $(SPEC) --target all
 
 # generated/ must be exactly what the generator makes from its spec
+# tune's winner against an independent harness: a small sweep here (CI); the full one is
+# `$(BIN)/python bench/tune_check.py` (n = 4..16, double and float, host and cortex-m4f)
+tune-check: $(STAMP)
+	$(BIN)/python bench/tune_check.py --n 4,8 --scalar float --target host,cortex-m4f --sample 6
+
 check-generated:
 	@tmp=$$(mktemp -d) && $(GENPY) -m derive.cli generate $(SPEC) -o $$tmp >/dev/null && \
 	  for f in $$tmp/*; do cmp -s $$f generated/$$(basename $$f) || { echo "differs: generated/$$(basename $$f)"; rm -rf $$tmp; exit 1; }; done && \
