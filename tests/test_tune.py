@@ -53,6 +53,12 @@ def test_every_variant_of_the_engine_is_a_candidate_and_nothing_else(pivoting, c
     want = {(lp, 1, None, n) for lp in loops for n in sizes}
     want |= {(lp, b, inn, n) for n in sizes for b in block_sizes(n) for lp, inn in product(loops, loops)}
     assert factor == want
+    from derive.spec import KERNEL_KEYS
+    if "size" in KERNEL_KEYS:
+        # every configuration also at compile-time n, for each size alone
+        fixed = {(c.entry["loop"], c.entry["block"], c.entry.get("inner"), c.entry["size"]) for c in cands
+                 if c.part in ("factor", "both") and c.entry.get("size")}
+        assert fixed == want
     got_solves = set()
     for c in cands:
         if c.part in ("solve", "both"):
