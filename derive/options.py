@@ -34,6 +34,7 @@ class KernelOptions:
     solve_upper: tuple[str, ...]    # state words of the backward (upper) solve
     spec: str = ""                  # the spec file's name, for the banner
     size: int | None = None         # n fixed at compile time (a fixed-size kernel), or None for n an argument
+    constant_time: bool = True      # fixed-size pivoted kernels: pivot by selects (True) or by branches
 
     def __post_init__(self) -> None:
         if not is_c_identifier(self.name) or self.name in C_KEYWORDS:
@@ -71,6 +72,8 @@ class KernelOptions:
         d.pop("spec")
         if d["size"] is None:
             d.pop("size")   # runtime-n kernels keep the hash they had before fixed sizes existed
+        if d["constant_time"]:
+            d.pop("constant_time")
         d.update(loop=self.loop, inner_loop=self.inner_loop, lower_loop=self.lower_loop,
                  upper_loop=self.upper_loop)
         return d
@@ -91,10 +94,10 @@ DEFAULT_SOLVE_LOOP = {"column-major": "outer-product", "row-major": "inner-produ
 
 def make_options(name: str, loop: str, block: int = 1, inner: str | None = None, scalar: str = "double",
                  layout: str = "column-major", pivoting: str = "none", solve_loop: str | None = None,
-                 spec: str = "", size: int | None = None) -> KernelOptions:
+                 spec: str = "", size: int | None = None, constant_time: bool = True) -> KernelOptions:
     """Convenience constructor from trade names (the spec reader validates and reports errors itself)."""
     inv = by_name(operation.LU, loop).words
     inn = by_name(operation.LU, inner or loop).words
     sl = solve_loop or DEFAULT_SOLVE_LOOP[layout]
     return KernelOptions(name, inv, block, inn if block > 1 else inv, scalar, layout, pivoting,
-                         by_name(operation.LOWER_SOLVE, sl).words, by_name(operation.UPPER_SOLVE, sl).words, spec, size)
+                         by_name(operation.LOWER_SOLVE, sl).words, by_name(operation.UPPER_SOLVE, sl).words, spec, size, constant_time)

@@ -11,7 +11,8 @@ from derive.engine.invariants import InfeasibleInvariant, by_name, from_mapping
 from derive.options import (C_KEYWORDS, DEFAULT_SOLVE_LOOP, LAYOUTS, MAX_BLOCK, MAX_SIZE, PIVOTING, SCALARS,
                             KernelOptions, is_c_identifier)
 
-KERNEL_KEYS = ("name", "loop", "invariant", "block", "inner", "scalar", "layout", "pivoting", "solve_loop", "size")
+KERNEL_KEYS = ("name", "loop", "invariant", "block", "inner", "scalar", "layout", "pivoting", "solve_loop", "size",
+               "constant_time")
 DEFAULT_KEYS = tuple(k for k in KERNEL_KEYS if k != "name")
 TOP_KEYS = ("defaults", "kernel")
 BUILTIN_DEFAULTS = {"block": 1, "scalar": "double", "layout": "column-major", "pivoting": "none"}
@@ -138,6 +139,15 @@ def _kernel(entry: dict, defaults: dict, i: int, spec_name: str, where: str,
                     f"time), or leave it out for n as an argument")
         size = None
 
+    constant_time = merged.get("constant_time", True)
+    if not isinstance(constant_time, bool):
+        bad("constant_time", f"{constant_time!r} is not allowed; allowed: true (pivoting by selects, the same "
+                             f"instructions whatever the matrix) or false (by branches)")
+        constant_time = True
+    elif not constant_time and (size is None or merged.get("pivoting") == "none"):
+        bad("constant_time", "false is allowed only with 'size' and pivoting = \"partial\" (kernels for n as an "
+                             "argument, and unpivoted ones, pivot by branches or not at all)")
+
     lu = operation.LU
     inv = None
     if "loop" in merged and "invariant" in merged:
@@ -196,5 +206,6 @@ def _kernel(entry: dict, defaults: dict, i: int, spec_name: str, where: str,
         name=raw_name, invariant=inv.words, block=block, inner=inner.words if block > 1 else inv.words,
         scalar=scalar, layout=layout, pivoting=pivoting,
         solve_lower=by_name(operation.LOWER_SOLVE, lower).words,
-        solve_upper=by_name(operation.UPPER_SOLVE, upper).words, spec=spec_name, size=size)
+        solve_upper=by_name(operation.UPPER_SOLVE, upper).words, spec=spec_name, size=size,
+        constant_time=constant_time)
 

@@ -44,6 +44,10 @@ def fixed_spec() -> str:
     out.append(_entry("fp_n16_cr", "crout", 4, "float", "row-major", "partial", 16))
     out.append(_entry("fp_n17", "left-looking", 1, "double", "column-major", "partial", 17))
     out.append(_entry("fu_n17", "up-looking", 3, "float", "column-major", "none", 17))
+    # the branching option (constant_time = false) passes the same checks
+    out.append(_entry("fp_br_b1_dc", "right-looking", 1, "double", "column-major", "partial", 6) +
+               "constant_time = false\n")
+    out.append(_entry("fp_br_b4_sr", "crout", 4, "float", "row-major", "partial", 7) + "constant_time = false\n")
     return "\n".join(out)
 
 
@@ -252,3 +256,12 @@ def test_size_is_checked(bad):
     with pytest.raises(SpecError) as e:
         parse(f'[[kernel]]\nname = "k"\nloop = "crout"\nsize = {bad}\n', "s.toml")
     assert "key 'size'" in str(e.value) and "from 1 to 32" in str(e.value)
+
+
+@pytest.mark.parametrize("extra", ['constant_time = 1\nsize = 4\npivoting = "partial"',
+                                   'constant_time = false\npivoting = "partial"',
+                                   'constant_time = false\nsize = 4'])
+def test_constant_time_is_checked(extra):
+    with pytest.raises(SpecError) as e:
+        parse(f'[[kernel]]\nname = "k"\nloop = "crout"\n{extra}\n', "s.toml")
+    assert "key 'constant_time'" in str(e.value)

@@ -49,7 +49,7 @@ def banner_lines(o: KernelOptions, kernel: Kernel) -> list[str]:
         f, s = kernel_flops(kernel, o.size, 1)
         counts = (f"flops (multiplications, additions, divisions, counted from the loop IR): factor {f}, solve {s} "
                   f"per right-hand side, at n={o.size} (2n^3/3 - n^2/2 - n/6 and 2n^2 - n)")
-        settings += f" size={o.size}"
+        settings += f" size={o.size}" + ("" if o.constant_time else " constant_time=false")
     else:
         f16, s16 = kernel_flops(kernel, 16, 1)
         f64, _ = kernel_flops(kernel, 64, 1)
@@ -71,13 +71,14 @@ def _banner(lines: list[str]):
     return render
 
 
-def lower_options(o: KernelOptions, choices: str = "select") -> Kernel:
+def lower_options(o: KernelOptions, choices: str | None = None) -> Kernel:
     """The kernel's routines: lowered for n as an argument, then specialised for a fixed n if it has one."""
     kernel = lower_kernel(o)
+    choices = choices or ("select" if o.constant_time else "branch")
     return lower_fixed(kernel, o, choices) if o.size is not None else kernel
 
 
-def emit_kernel(o: KernelOptions, choices: str = "select") -> Emitted:
+def emit_kernel(o: KernelOptions, choices: str | None = None) -> Emitted:
     kernel = lower_options(o, choices)
     env = _environment()
     layout, scalar = LAYOUTS[o.layout], SCALARS[o.scalar]
@@ -87,7 +88,7 @@ def emit_kernel(o: KernelOptions, choices: str = "select") -> Emitted:
                   digest=o.digest(), block=o.block, scalar=scalar, layout=layout, pivoted=o.pivoting != "none",
                   pivoting=o.pivoting, loop=o.loop, inner_loop=o.inner_loop, lower_loop=o.lower_loop,
                   upper_loop=o.upper_loop, invariant_doc=invariant_text(operation.LU, o.invariant, inv.label),
-                  size=o.size)
+                  size=o.size, constant_time=o.constant_time)
 
     cp = FixedCPrinter(o.name, layout, scalar, o.size) if o.size is not None else CPrinter(o.name, layout, scalar)
     internal, public = [], []
