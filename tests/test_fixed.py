@@ -265,3 +265,16 @@ def test_constant_time_is_checked(extra):
     with pytest.raises(SpecError) as e:
         parse(f'[[kernel]]\nname = "k"\nloop = "crout"\n{extra}\n', "s.toml")
     assert "key 'constant_time'" in str(e.value)
+
+
+def test_ir_dump_shows_the_steps(tmp_path):
+    """`luforge derive --spec --kernel --ir` dumps a fixed-size kernel's IR after the size lowering."""
+    import subprocess
+    import sys
+    spec = tmp_path / "s.toml"
+    spec.write_text('[[kernel]]\nname = "tide_fix"\nloop = "crout"\nblock = 2\npivoting = "partial"\nsize = 4\n')
+    out = subprocess.run([sys.executable, "-m", "derive", "derive", "--spec", str(spec), "--kernel", "tide_fix",
+                          "--ir"], capture_output=True, text=True, check=True).stdout
+    assert "every routine (n = 4)" in out and "routine tide_fix(a, lda, ipiv)" in out
+    assert out.count("step k = ") == 2 + 2 + 2      # the factor, then the one-column forward and backward solves
+    assert "by selects" in out and "when nrhs = 1" in out

@@ -38,7 +38,7 @@ def dump_stmt(s, indent: str = "") -> list[str]:
             lines += dump_stmt(t, indent + "  ")
         return lines
     if isinstance(s, Step):
-        lines = [f"{indent}step {s.var} = {s.value} of {s.count}, size {s.size}",
+        lines = [f"{indent}step {s.var} = {s.value}, size {s.size} (one of {s.count} steps)",
                  f"{indent}  invariant {s.invariant}",
                  f"{indent}  positions {s.partition}"]
         for t in s.body:

@@ -72,9 +72,9 @@ def run(args) -> int:
         return fail(f"{inv.label}: {e}")
     sys.stdout.write(derivation_text(d, block, show_ir=args.ir and o is None))
     if args.ir and o is not None:
-        from derive.lowering.lower import lower_kernel
         from derive.lowering.printing import dump_routine
-        print(f"\nloop IR of kernel {o.name}, every routine:")
-        for r in lower_kernel(o).routines:
+        from derive.printers.emit import lower_options     # a fixed-size kernel: its IR after the size lowering
+        print(f"\nloop IR of kernel {o.name}, every routine{' (n = ' + str(o.size) + ')' if o.size else ''}:")
+        for r in lower_options(o).routines:
             print(dump_routine(r))
     return 0
