@@ -67,7 +67,8 @@ def choose_cases(o: KernelOptions, t: Target, rng, per_size: int = 2, orders=Non
     leading dimensions beyond n, and matrices with an exact zero pivot at a known step."""
     dtype = np.dtype(SCALARS[o.scalar].numpy)
     abi = abi_of(o)
-    sizes = [n for n in (orders or sizes_for(o.block)) if n <= t.max_n and (abi.orders is None or n in abi.orders)]
+    sizes = [n for n in (orders or abi.orders or sizes_for(o.block))
+             if n <= t.max_n and (abi.orders is None or n in abi.orders)]
     pivoted = o.pivoting != "none"
     cases = []
     for n in sizes:
@@ -75,7 +76,7 @@ def choose_cases(o: KernelOptions, t: Target, rng, per_size: int = 2, orders=Non
             a = rng.standard_normal((n, n)).astype(dtype) if pivoted else column_dominant(n, dtype, rng)
             cases.append(_case(o, a, rng, max(1, n) + int(rng.integers(0, 4)), None))
     if orders is None:
-        for n in [m for m in (1, 5, min(17, t.max_n)) if abi.orders is None or m in abi.orders]:
+        for n in [m for m in (abi.orders or (1, 5, 17)) if m <= t.max_n]:
             k = n // 2
             a = (rng.standard_normal((n, n)) if pivoted else column_dominant(n, np.float64, rng)).astype(dtype)
             if pivoted:

@@ -38,7 +38,7 @@ class Target:
     image: str = "hosted"                   # "hosted": a program for an OS (or user-mode emulator); "bare": startup
                                             # code, vector table and linker script from templates/targets/
     runner: tuple[str, ...] = ()            # command that runs an image, "{image}" replaced; () runs it directly
-    counting: str = "none"                  # how executed instructions are counted: "none", "plugin" or "icount"
+    counting: str = "none"                  # how executed instructions are counted: "none" or "plugin" (QEMU TCG)
     packages: tuple[str, ...] = ()          # Debian packages that provide the compiler and the runner
     extra: tuple[tuple[str, str], ...] = field(default=())   # row-specific facts (memory map, machine) by name
     opt: tuple[str, ...] = ("-O2",)         # optimisation the kernel is checked and measured with
@@ -54,8 +54,8 @@ class Target:
     def __post_init__(self) -> None:
         if self.image not in ("hosted", "bare"):
             raise ValueError(f"target {self.name}: image must be hosted or bare")
-        if self.counting not in ("none", "plugin", "icount"):
-            raise ValueError(f"target {self.name}: counting must be none, plugin or icount")
+        if self.counting not in ("none", "plugin"):
+            raise ValueError(f"target {self.name}: counting must be none or plugin")
         if self.image == "bare" and (not self.startup or not all(self.memory[1::2])):
             raise ValueError(f"target {self.name}: a bare image needs a startup file and a memory map")
         if self.max_n < 1 or self.paint_bytes % 4:
