@@ -20,11 +20,12 @@ from derive.printers.emit import emit_kernel
 from derive.targets.table import CHECK_ROWS, TARGETS, Target, get
 
 # A few kernels per row (the full catalogue on every row is `make target-check`): pivoted float column-major
-# unblocked, unpivoted double row-major blocked, and a pivoted double blocked one.
+# unblocked, unpivoted double row-major blocked, a pivoted double blocked one, and a fixed-order one.
 KERNELS = (
     make_options("tt_right_piv_s", "right-looking", 1, scalar="float", pivoting="partial"),
     make_options("tt_crout_b3_d", "crout", 3, inner="left-looking", scalar="double", layout="row-major"),
     make_options("tt_left_piv_b4_d", "left-looking", 4, inner="crout", scalar="double", pivoting="partial"),
+    make_options("tt_fixed5_piv_s", "crout", 1, scalar="float", pivoting="partial", size=5),
 )
 
 
@@ -46,14 +47,14 @@ def test_row_runs_kernels_bit_identical_to_host(row, host):
     _usable(t)
     for k, o in enumerate(KERNELS):
         r = ondevice.check_on(o, t, np.random.default_rng([7, k]), per_size=1, host=host[o.name])
-        if cross.supports(t, o.scalar):
-            assert r.notes and not r.matrices
-            continue
         # thresholds: LAPACK TESTING/dtest.in (ratios < 30) and Higham 2002, Thm 9.3 (componentwise <= 1),
         # applied by the same judge as host verify
         assert r.passed, (row, o.name, r.problems)
         assert r.bit_identical
-        assert r.matrices >= 10 and max(r.sizes) == min(t.max_n, 48)
+        if o.size:
+            assert r.sizes == [o.size]
+        else:
+            assert r.matrices >= 10 and max(r.sizes) == min(t.max_n, 48)
         assert 0 < r.max_factor_stack <= t.paint_bytes
 
 

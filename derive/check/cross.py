@@ -48,14 +48,6 @@ def require(t: Target) -> None:
                           f"{' '.join(t.packages)}")
 
 
-def supports(t: Target, scalar: str) -> str | None:
-    """None when kernels of this scalar can be linked for the row, else the reason they cannot."""
-    if scalar in t.runtime_missing:
-        return (f"{scalar} on {t.name}: the toolchain ships no software {scalar} runtime for this core "
-                f"(Debian's riscv64 gcc has no rv32 libgcc), so such a kernel cannot be linked")
-    return None
-
-
 def _run(cmd: list[str], cwd: Path, what: str, timeout: float = 120.0) -> subprocess.CompletedProcess:
     try:
         res = subprocess.run(cmd, cwd=cwd, capture_output=True, text=True, timeout=timeout)
@@ -132,9 +124,9 @@ def build_image(t: Target, name: str, sources: dict[str, str], kernel: str, tag:
             objs.append(o.name)
         link = [*cc, *arch, *t.ldflags, "-Wl,--gc-sections", f"-Wl,-Map={name}.map", *objs, "-o", f".{elf.name}"]
         if t.image == "bare":
+            # libgcc last: the software float and division routines a kernel may call, and nothing else
             link[len(cc):len(cc)] = ["-T", "image.ld"]
-            if "-nostdlib" not in t.ldflags:
-                link += ["-lgcc"]
+            link += ["-lgcc"]
         _run(link, root, f"{t.name}: linking {name}")
         os.replace(root / f".{elf.name}", elf)
     return Image(t, elf, root, obj)

@@ -28,10 +28,14 @@ class Abi:
     factor_args: str
     solve_args: str
     orders: tuple[int, ...] | None = None     # None: any n; else only these
+    unsupported: str | None = None            # why the driver cannot call such a kernel yet
 
 
 def abi_of(o: KernelOptions) -> Abi:
     piv = ", ipiv" if o.pivoting != "none" else ""
+    if getattr(o, "lanes", 1) > 1:
+        # W interleaved matrices per call need their buffers interleaved by choose_cases/data_c as well
+        return Abi("", "", None, "batched (lanes) kernels are not driven on a target yet")
     size = getattr(o, "size", None)   # fixed-order kernels: `int NAME(T *a, int lda, int *ipiv)`
     if size:
         return Abi(f"a, lda{piv}", f"nrhs, a, lda{piv}, b, ldb", (int(size),))
@@ -46,48 +50,57 @@ class Case:
     b: np.ndarray
     b_place: Placed
     expect_info: int | None     # None: nonsingular, so 0; else the exact code
+    judge: str = "random"       # what is promised: "random" (ratios and Higham's bound), "exact" (the known
+                                # factors, bit for bit), "lapack" (dchkge: code, dget01, dget02), "code" only
+    exact: tuple | None = None  # (lu, ipiv) for "exact"
 
 
 def _bits(dtype) -> np.dtype:
     return np.dtype(np.uint32) if np.dtype(dtype).itemsize == 4 else np.dtype(np.uint64)
 
 
-def _case(o: KernelOptions, a: np.ndarray, rng, lda: int, expect: int | None) -> Case:
+def _case(o: KernelOptions, a: np.ndarray, rng, lda: int, expect: int | None, judge: str = "random",
+          exact=None) -> Case:
     dtype = a.dtype
     n = a.shape[0]
     pa, _ = place(a, lda, o.layout, dtype)
     b = rng.standard_normal((n, NRHS)).astype(dtype)
+    if judge == "lapack" and n:
+        b *= np.max(np.abs(a))   # scaled with the matrix, so LAPACK's types 10 and 11 stay in range (as verify)
     ldb = (n if LAYOUTS[o.layout].leading == "rows" else NRHS) + int(rng.integers(0, 2))
     pb, _ = place(b, max(1, ldb), o.layout, dtype)
-    return Case(n, a, pa, b, pb, expect)
+    return Case(n, a, pa, b, pb, expect, judge, exact)
+
+
+ZERO_PIVOT_ORDERS = (1, 5, 16)
 
 
 def choose_cases(o: KernelOptions, t: Target, rng, per_size: int = 2, orders=None) -> list[Case]:
-    """Random matrices (pivoted) or column-dominant ones (unpivoted) for the verify sizes that fit the row, with
-    leading dimensions beyond n, and matrices with an exact zero pivot at a known step."""
+    """Matrices for the sizes that fit the row: random (pivoted) or column-dominant (unpivoted) ones with
+    leading dimensions beyond n, and exact zero pivots. With `orders`: one random matrix per order (counting)."""
     dtype = np.dtype(SCALARS[o.scalar].numpy)
     abi = abi_of(o)
-    sizes = [n for n in (orders or abi.orders or sizes_for(o.block))
-             if n <= t.max_n and (abi.orders is None or n in abi.orders)]
+
+    def fits(ns):
+        return [n for n in ns if n <= t.max_n and (abi.orders is None or n in abi.orders)]
+
     pivoted = o.pivoting != "none"
     cases = []
-    for n in sizes:
+    for n in fits(orders or abi.orders or sizes_for(o.block)):
         for _ in range(per_size if orders is None else 1):
             a = rng.standard_normal((n, n)).astype(dtype) if pivoted else column_dominant(n, dtype, rng)
             cases.append(_case(o, a, rng, max(1, n) + int(rng.integers(0, 4)), None))
-    if orders is None:
-        for n in [m for m in (abi.orders or (1, 5, 17)) if m <= t.max_n]:
+    if orders is not None:
+        return cases
+    for n in fits(abi.orders or ZERO_PIVOT_ORDERS):
+        a = (rng.standard_normal((n, n)) if pivoted else column_dominant(n, np.float64, rng)).astype(dtype)
+        if pivoted:
             k = n // 2
-            a = (rng.standard_normal((n, n)) if pivoted else column_dominant(n, np.float64, rng)).astype(dtype)
-            if pivoted:
-                # a zero column stays exactly zero under elimination: the first zero pivot is at step k
-                a[:, k] = 0
-            else:
-                # leading k x k block dominant, then a zero at (k, k) once the first k steps have been
-                # taken: a(k, k) set to the exact Schur value would round; a zero leading 1x1 is exact
-                k = 0
-                a[0, 0] = 0
-            cases.append(_case(o, a, rng, max(1, n), k + 1))
+            a[:, k] = 0     # a zero column stays exactly zero under elimination: the first zero pivot is at k
+        else:
+            k = 0
+            a[0, 0] = 0     # exact: a nonzero leading entry would have to be the Schur value, which rounds
+        cases.append(_case(o, a, rng, max(1, n), k + 1, "lapack" if pivoted else "code"))
     return cases
 
 
@@ -231,18 +244,26 @@ def judge(o: KernelOptions, t: Target, cases: list[Case], results: list[Result],
         if r.info != expect:
             problems.append(f"{tag}: factor returned {r.info}, expected {expect}")
             continue
-        if r.code != 0:
-            problems.append(f"{tag}: solve returned {r.code}")
+        if c.judge == "code":
+            continue
         lu = Placed(r.a_buf, c.a_place.offset, n, n, c.a_place.ld, o.layout).read()
         x = Placed(r.b_buf, c.b_place.offset, n, NRHS, c.b_place.ld, o.layout).read()
         ipiv = piv[GUARD:GUARD + n].astype(np.intp) if pivoted else None
         if ipiv is not None and ((ipiv < 0) | (ipiv >= max(n, 1))).any():
             problems.append(f"{tag}: pivot entries outside 0..n-1")
             continue
-        if expect == 0 or pivoted:
-            f, cw = factor_ratio(c.a, lu, ipiv), componentwise_ratio(c.a, lu, ipiv)
-            wf, wc = max(wf, f), max(wc, cw)
+        if c.judge == "exact":
+            want_lu, want_piv = c.exact
+            if not np.array_equal(lu, want_lu) or (pivoted and not np.array_equal(ipiv, want_piv)):
+                problems.append(f"{tag}: factors differ from the exactly known ones")
+                continue
+        else:
+            wf = max(wf, factor_ratio(c.a, lu, ipiv))
+        if c.judge == "random":
+            wc = max(wc, componentwise_ratio(c.a, lu, ipiv))
         if expect == 0:
+            if r.code != 0:
+                problems.append(f"{tag}: solve returned {r.code}")
             ws = max(ws, solve_ratio(c.a, x, c.b))
         if host is not None:
             hinfo, hlu, hpiv, _ = host.factor(c.a, c.a_place.ld)
@@ -276,7 +297,7 @@ def image_for(o: KernelOptions, t: Target, cases: list[Case], tag: str = "verify
 
 def check_on(o: KernelOptions, t: Target, rng, per_size: int = 2, host=None) -> TargetRow:
     """Build, run and judge one kernel on one row; a scalar the row cannot link is a note, not a failure."""
-    why = cross.supports(t, o.scalar)
+    why = abi_of(o).unsupported
     if why:
         return TargetRow(o.name, [], 0, 0.0, 0.0, 0.0, [], target=t.name, notes=[f"not run: {why}"])
     cases = choose_cases(o, t, rng, per_size)
@@ -315,10 +336,10 @@ def verify_targets(options: list[KernelOptions], targets: list[Target], seed: in
 def table(rows: list[TargetRow]) -> str:
     head = ("target", "kernel", "sizes", "matrices", "factor ratio", "componentwise", "solve ratio",
             "stack f/s (painted)", "bits = host", "result")
-    body = [(r.target, r.name, f"{r.sizes[0]}..{r.sizes[-1]}" if r.sizes else "-", str(r.matrices),
-             f"{r.worst_factor:.3f}", f"{r.worst_componentwise:.3f}", f"{r.worst_solve:.3f}",
-             f"{r.max_factor_stack}/{r.max_solve_stack}", "yes" if r.bit_identical else "NO",
-             "not run" if r.notes and not r.matrices else "pass" if r.passed else "FAIL") for r in rows]
+    body = [(r.target, r.name, f"{r.sizes[0]}..{r.sizes[-1]}", str(r.matrices), f"{r.worst_factor:.3f}",
+             f"{r.worst_componentwise:.3f}", f"{r.worst_solve:.3f}", f"{r.max_factor_stack}/{r.max_solve_stack}",
+             "yes" if r.bit_identical else "NO", "pass" if r.passed else "FAIL") if r.matrices else
+            (r.target, r.name, "-", "0", "-", "-", "-", "-", "-", "not run") for r in rows]
     widths = [max(len(x) for x in col) for col in zip(head, *body)]
     fmt = "  ".join(f"{{:<{w}}}" for w in widths)
     out = [fmt.format(*row).rstrip() for row in (head, tuple("-" * w for w in widths), *body)]

@@ -48,7 +48,6 @@ class Target:
     paint_bytes: int = 16384                # stack painted below the driver's frame to measure what a call uses
     float_mnemonics: tuple[str, ...] = ()   # disassembler mnemonic prefixes counted as floating-point instructions
     tools: str = ""                         # binutils prefix for size, nm and objdump ("" for the host's)
-    runtime_missing: tuple[str, ...] = ()   # scalars whose software runtime the toolchain does not ship
     timeout: float = 300.0                  # seconds one image may run
 
     def __post_init__(self) -> None:
@@ -102,16 +101,16 @@ TARGETS: dict[str, Target] = {t.name: t for t in (
            _SCALAR_C, cflags=("-mcpu=cortex-m0", "-mfloat-abi=soft", *_M_PROFILE), native=(),
            runner=("qemu-system-arm", "-M", "microbit", *_QEMU_BARE, "-kernel", "{image}"),
            memory=(0x0, 0x40000, 0x20000000, 0x4000), max_n=16, paint_bytes=2048, **_ARM_EABI),
-    # Debian's riscv64 gcc makes position-independent code by default, and ships no rv32 libgcc: the image is
-    # linked without any runtime library, so double (software) kernels cannot be linked for this row.
+    # The bare-metal riscv64-unknown-elf gcc, not Debian's riscv64-linux-gnu one: only it ships an rv32imafc/ilp32f
+    # libgcc, which double (software) kernels need; the Linux one also makes position-independent code by default.
     Target("rv32imafc", "RISC-V RV32IMAFC, single-precision FPU, bare metal on QEMU virt", 0, _SCALAR_C,
-           cc=("riscv64-linux-gnu-gcc",), tools="riscv64-linux-gnu-",
-           cflags=("-march=rv32imafc_zicsr", "-mabi=ilp32f", "-mcmodel=medany", "-fno-pie", "-ffreestanding"),
-           ldflags=("-no-pie", "-nostdlib", "-nostartfiles", "-Wl,--build-id=none"), native=("float",),
+           cc=("riscv64-unknown-elf-gcc",), tools="riscv64-unknown-elf-",
+           cflags=("-march=rv32imafc", "-mabi=ilp32f", "-mcmodel=medany", "-ffreestanding"),
+           ldflags=("-nostdlib", "-nostartfiles", "-Wl,--build-id=none"), native=("float",),
            image="bare", startup="riscv.S", memory=(0x80000000, 0x400000, 0x80400000, 0x400000),
            runner=("qemu-system-riscv32", "-M", "virt", "-bios", "none", *_QEMU_BARE, "-kernel", "{image}"),
-           counting="plugin", float_mnemonics=_RV_FLOAT, opt=("-Os",), runtime_missing=("double",),
-           packages=("gcc-riscv64-linux-gnu", "qemu-system-misc")),
+           counting="plugin", float_mnemonics=_RV_FLOAT, opt=("-Os",),
+           packages=("gcc-riscv64-unknown-elf", "qemu-system-misc")),
     Target("aarch64-linux", "64-bit Arm Linux, static, on qemu-aarch64 (user mode)", 0, _SCALAR_C,
            cc=("aarch64-linux-gnu-gcc",), tools="aarch64-linux-gnu-", ldflags=("-static",),
            runner=("qemu-aarch64", "{image}"), counting="plugin", float_mnemonics=_A64_FLOAT,
