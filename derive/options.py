@@ -14,6 +14,7 @@ LAYOUTS = ("column-major", "row-major")
 PIVOTING = ("none", "partial")
 MAX_BLOCK = 4096
 MAX_SIZE = 32       # fixed-size kernels: n from 1 to this (larger n gains little over the runtime-n kernels)
+MAX_LANES = 64       # matrices interleaved in one group (`lanes`); 1 means not batched
 
 C_KEYWORDS = frozenset("""auto break case char const continue default do double else enum extern float for goto if
 inline int long register restrict return short signed sizeof static struct switch typedef union unsigned void
@@ -35,6 +36,7 @@ class KernelOptions:
     spec: str = ""                  # the spec file's name, for the banner
     size: int | None = None         # n fixed at compile time (a fixed-size kernel), or None for n an argument
     constant_time: bool = True      # fixed-size pivoted kernels: pivot by selects (True) or by branches
+    lanes: int = 1                  # W matrices interleaved element by element (batched kernel); 1: one matrix
 
     def __post_init__(self) -> None:
         if not is_c_identifier(self.name) or self.name in C_KEYWORDS:
@@ -49,6 +51,10 @@ class KernelOptions:
         make(operation.LU, self.inner)
         make(operation.LOWER_SOLVE, self.solve_lower)
         make(operation.UPPER_SOLVE, self.solve_upper)
+        if isinstance(self.lanes, bool) or not isinstance(self.lanes, int) or not 1 <= self.lanes <= MAX_LANES:
+            raise ValueError(f"lanes must be an integer from 1 to {MAX_LANES}")
+        if self.lanes > 1 and self.pivoting != "partial":
+            raise ValueError("lanes > 1 needs pivoting = partial (each lane pivots and reports on its own)")
 
     @property
     def loop(self) -> str:
@@ -74,6 +80,8 @@ class KernelOptions:
             d.pop("size")   # runtime-n kernels keep the hash they had before fixed sizes existed
         if d["constant_time"]:
             d.pop("constant_time")
+        if self.lanes == 1:
+            d.pop("lanes")      # a single-matrix kernel keeps the settings (and hash) it had before lanes existed
         d.update(loop=self.loop, inner_loop=self.inner_loop, lower_loop=self.lower_loop,
                  upper_loop=self.upper_loop)
         return d
@@ -94,10 +102,12 @@ DEFAULT_SOLVE_LOOP = {"column-major": "outer-product", "row-major": "inner-produ
 
 def make_options(name: str, loop: str, block: int = 1, inner: str | None = None, scalar: str = "double",
                  layout: str = "column-major", pivoting: str = "none", solve_loop: str | None = None,
-                 spec: str = "", size: int | None = None, constant_time: bool = True) -> KernelOptions:
+                 spec: str = "", size: int | None = None, constant_time: bool = True,
+                 lanes: int = 1) -> KernelOptions:
     """Convenience constructor from trade names (the spec reader validates and reports errors itself)."""
     inv = by_name(operation.LU, loop).words
     inn = by_name(operation.LU, inner or loop).words
     sl = solve_loop or DEFAULT_SOLVE_LOOP[layout]
     return KernelOptions(name, inv, block, inn if block > 1 else inv, scalar, layout, pivoting,
-                         by_name(operation.LOWER_SOLVE, sl).words, by_name(operation.UPPER_SOLVE, sl).words, spec, size, constant_time)
+                         by_name(operation.LOWER_SOLVE, sl).words, by_name(operation.UPPER_SOLVE, sl).words, spec, size,
+                         constant_time, lanes)

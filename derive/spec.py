@@ -8,16 +8,16 @@ from pathlib import Path
 from derive.engine import operation
 from derive.engine.derivation import derive, pivoting_supported
 from derive.engine.invariants import InfeasibleInvariant, by_name, from_mapping
-from derive.options import (C_KEYWORDS, DEFAULT_SOLVE_LOOP, LAYOUTS, MAX_BLOCK, MAX_SIZE, PIVOTING, SCALARS,
-                            KernelOptions, is_c_identifier)
+from derive.options import (C_KEYWORDS, DEFAULT_SOLVE_LOOP, LAYOUTS, MAX_BLOCK, MAX_LANES, MAX_SIZE, PIVOTING,
+                            SCALARS, KernelOptions, is_c_identifier)
 
 KERNEL_KEYS = ("name", "loop", "invariant", "block", "inner", "scalar", "layout", "pivoting", "solve_loop", "size",
-               "constant_time")
+               "constant_time", "lanes")
 DEFAULT_KEYS = tuple(k for k in KERNEL_KEYS if k != "name")
 TOP_KEYS = ("defaults", "kernel")
 BUILTIN_DEFAULTS = {"block": 1, "scalar": "double", "layout": "column-major", "pivoting": "none"}
 # symbols a kernel emits besides its own name; another kernel may not take one of them
-PUBLIC_SUFFIXES = ("_solve",)
+PUBLIC_SUFFIXES = ("_solve", "_pack", "_unpack")
 
 
 class SpecError(Exception):
@@ -148,6 +148,16 @@ def _kernel(entry: dict, defaults: dict, i: int, spec_name: str, where: str,
         bad("constant_time", "false is allowed only with 'size' and pivoting = \"partial\" (kernels for n as an "
                              "argument, and unpivoted ones, pivot by branches or not at all)")
 
+    lanes = merged.get("lanes", 1)
+    if isinstance(lanes, bool) or not isinstance(lanes, int) or not 1 <= lanes <= MAX_LANES:
+        bad("lanes", f"{lanes!r} is not allowed; allowed: an integer from 1 (one matrix a call) to {MAX_LANES} "
+                     f"(matrices interleaved element by element)")
+        lanes = None
+    elif lanes > 1 and pivoting and pivoting != "partial":
+        bad("lanes", f"a batched kernel (lanes = {lanes}) needs pivoting = \"partial\": each matrix pivots and "
+                     f"reports a zero pivot on its own; got pivoting = {pivoting!r}")
+        lanes = None
+
     lu = operation.LU
     inv = None
     if "loop" in merged and "invariant" in merged:
@@ -200,12 +210,12 @@ def _kernel(entry: dict, defaults: dict, i: int, spec_name: str, where: str,
         bad("solve_loop", f"{solve!r} is not allowed; allowed: {' or '.join(names)}, or a table "
                           f"{{ lower = ..., upper = ... }} of those")
 
-    if len(problems) > start or inv is None or inner is None:
+    if len(problems) > start or inv is None or inner is None or lanes is None:
         return None
     return KernelOptions(
         name=raw_name, invariant=inv.words, block=block, inner=inner.words if block > 1 else inv.words,
         scalar=scalar, layout=layout, pivoting=pivoting,
         solve_lower=by_name(operation.LOWER_SOLVE, lower).words,
         solve_upper=by_name(operation.UPPER_SOLVE, upper).words, spec=spec_name, size=size,
-        constant_time=constant_time)
+        constant_time=constant_time, lanes=lanes)
 

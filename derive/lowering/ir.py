@@ -227,10 +227,10 @@ class Call:
 @dataclass(frozen=True, slots=True)
 class Param:
     name: str
-    kind: str       # "size", "matrix", "const_matrix", "pivots", "const_pivots"
+    kind: str       # "size", "matrix", "const_matrix", "pivots", "const_pivots"; batched: "count", "codes"
 
     def __post_init__(self) -> None:
-        if self.kind not in ("size", "matrix", "const_matrix", "pivots", "const_pivots"):
+        if self.kind not in ("size", "matrix", "const_matrix", "pivots", "const_pivots", "count", "codes"):
             raise ValueError(f"Param kind {self.kind!r}")
 
 

@@ -79,6 +79,9 @@ def lower_options(o: KernelOptions, choices: str | None = None) -> Kernel:
 
 
 def emit_kernel(o: KernelOptions, choices: str | None = None) -> Emitted:
+    if o.lanes > 1:     # batched: the same IR lowered over the lanes, with its own ABI (emit_lanes.py)
+        from derive.printers.emit_lanes import emit_lanes
+        return emit_lanes(o)
     kernel = lower_options(o, choices)
     env = _environment()
     layout, scalar = LAYOUTS[o.layout], SCALARS[o.scalar]
