@@ -110,3 +110,92 @@ class CKernel:
         if self.pivoted:
             ok = ok and bool(np.array_equal(piv, pcan))
         return code, pb.read(), ok
+
+
+# -- batched kernels (lanes = W) ----------------------------------------------------------------------------------
+
+def interleave_index(count: int, n: int, w: int, layout: str) -> np.ndarray:
+    """Offsets of element (i, j) of matrix m, shape (count, n, n), in the interleaved storage the header
+    documents: ((m / W) * n * n + IDX(i, j)) * W + m % W, IDX the layout's index with leading dimension n."""
+    m, i, j = np.meshgrid(np.arange(count), np.arange(n), np.arange(n), indexing="ij")
+    idx = i + j * n if layout == "column-major" else i * n + j
+    return ((m // w) * n * n + idx) * w + m % w
+
+
+class LaneKernel:
+    """One built batched kernel on (count, n, n) stacks of logical matrices: every buffer sits between canaries,
+    and the unused lanes of the last partial group hold canaries too, which must survive every call."""
+
+    def __init__(self, module, options: KernelOptions):
+        self.ffi, self.lib = module.ffi, module.lib
+        self.o = options
+        self.w = options.lanes
+        self.dtype = np.dtype(SCALARS[options.scalar].numpy)
+        self.ctype = SCALARS[options.scalar].c_type
+        self._factor = getattr(self.lib, options.name)
+        self._solve = getattr(self.lib, options.name + "_solve")
+        self.pack_fn = getattr(self.lib, options.name + "_pack")
+        self.unpack_fn = getattr(self.lib, options.name + "_unpack")
+
+    def ptr(self, buf: np.ndarray, offset: int, ctype: str):
+        return self.ffi.cast(f"{ctype} *", buf.ctypes.data + offset * buf.itemsize)
+
+    def groups(self, count: int) -> int:
+        return -(-count // self.w)
+
+    def storage(self, x: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(buffer with canaries, index of x's elements in it, copy of the buffer): x is (count, n, n)."""
+        count, n = x.shape[:2]
+        size = self.groups(count) * n * n * self.w
+        buf = np.full(size + 2 * GUARD, CANARY, dtype=self.dtype)
+        idx = GUARD + interleave_index(count, n, self.w, self.o.layout)
+        buf[idx] = x
+        return buf, idx, buf.copy()
+
+    def factor(self, mats: np.ndarray):
+        """Returns (code, info (count,), lu (count, n, n), ipiv (count, n), canaries_ok)."""
+        count, n = mats.shape[:2]
+        buf, idx, before = self.storage(np.asarray(mats, dtype=self.dtype))
+        piv = np.full(count * n + 2 * GUARD, -12345, dtype=np.intc)
+        info = np.full(count + 2 * GUARD, -12345, dtype=np.intc)
+        code = self._factor(count, n, self.ptr(buf, GUARD, self.ctype), self.ptr(piv, GUARD, "int"),
+                            self.ptr(info, GUARD, "int"))
+        mask = np.ones(buf.shape, bool)
+        mask[idx.ravel()] = False
+        ok = bool(np.array_equal(buf[mask], before[mask]))
+        for arr, used in ((piv, count * n), (info, count)):
+            ok = ok and bool(np.all(arr[:GUARD] == -12345) and np.all(arr[GUARD + used:] == -12345))
+        return (code, info[GUARD:GUARD + count].astype(np.intp), buf[idx],
+                piv[GUARD:GUARD + count * n].reshape(count, n).astype(np.intp), ok)
+
+    def solve(self, lu: np.ndarray, ipiv: np.ndarray, b: np.ndarray):
+        """b (count, n), one right-hand side per matrix. Returns (code, x, canaries_ok); lu and ipiv unchanged."""
+        count, n = b.shape
+        lbuf, _, lbefore = self.storage(np.asarray(lu, dtype=self.dtype))
+        # b is an n x 1 matrix per lane: its interleaved offsets are those of column 0 of an n x n stack, packed
+        bidx = GUARD + ((np.arange(count)[:, None] // self.w) * n + np.arange(n)[None, :]) * self.w \
+            + (np.arange(count)[:, None] % self.w)
+        bbuf = np.full(self.groups(count) * n * self.w + 2 * GUARD, CANARY, dtype=self.dtype)
+        bbuf[bidx] = b
+        bbefore = bbuf.copy()
+        piv = np.full(count * n + 2 * GUARD, -12345, dtype=np.intc)
+        piv[GUARD:GUARD + count * n] = np.asarray(ipiv, dtype=np.intc).ravel()
+        pbefore = piv.copy()
+        code = self._solve(count, n, self.ptr(lbuf, GUARD, f"const {self.ctype}"),
+                           self.ptr(piv, GUARD, "const int"), self.ptr(bbuf, GUARD, self.ctype))
+        mask = np.ones(bbuf.shape, bool)
+        mask[bidx.ravel()] = False
+        ok = bool(np.array_equal(bbuf[mask], bbefore[mask]) and np.array_equal(lbuf, lbefore, equal_nan=True)
+                  and np.array_equal(piv, pbefore))
+        return code, bbuf[bidx], ok
+
+    def pack(self, mats: np.ndarray) -> np.ndarray:
+        """The C pack helper's interleaved storage of (count, n, n) matrices (unused lanes: canaries)."""
+        count, n = mats.shape[:2]
+        order = "F" if self.o.layout == "column-major" else "C"
+        src = np.concatenate([np.asarray(m, dtype=self.dtype).ravel(order=order) for m in mats]) if count else \
+            np.zeros(0, self.dtype)
+        out = np.full(self.groups(count) * n * n * self.w, CANARY, dtype=self.dtype)
+        code = self.pack_fn(count, n, self.ptr(src, 0, f"const {self.ctype}"), self.ptr(out, 0, self.ctype))
+        assert code == 0
+        return out

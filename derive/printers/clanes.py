@@ -101,10 +101,17 @@ class LaneCPrinter(CPrinter):
             else:
                 args.append(self.names.get(p.name, p.name))
         w = f"{self.prefix.upper()}_LANES"
+        call = f"{s.routine}({', '.join(args)});"
+        # whole groups pass the lane count as the constant W, so the compiler can specialise the lane loops for
+        # it; the last, partial group passes fewer, and its lanes past count are neither read nor written
         return [self.comment(f"{s.source}; g is the first matrix of the group, nl its lanes in use", indent),
-                f"{indent}for (g = 0; g < COUNT; g += {w}) {{",
-                f"{indent}    const size_t nl = COUNT - g < {w} ? COUNT - g : {w};",
-                f"{indent}    {s.routine}({', '.join(args)});",
+                f"{indent}for (g = 0; COUNT - g >= {w}; g += {w}) {{",
+                f"{indent}    const size_t nl = {w};",
+                f"{indent}    {call}",
+                f"{indent}}}",
+                f"{indent}if (g < COUNT) {{",
+                f"{indent}    const size_t nl = COUNT - g;",
+                f"{indent}    {call}",
                 f"{indent}}}"]
 
     # -- routines ----------------------------------------------------------------------------------------------

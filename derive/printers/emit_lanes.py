@@ -43,7 +43,9 @@ def emit_lanes(o: KernelOptions) -> emit.Emitted:
     idx = layout.index.replace("(ld)", "n").replace("(i)", "i").replace("(j)", "j")
     h_text = env.get_template("c/kernel_lanes.h.j2").render(
         guard=f"{o.name.upper()}_H", factor_params=emit._params(public[0]["signature"]),
-        solve_params=emit._params(public[1]["signature"]), pack_params=pack_params, layout_idx=idx, **common)
+        solve_params=emit._params(public[1]["signature"]), layout_idx=idx,
+        # restrict only on the definitions: the header is included from C++ too
+        pack_params={k: v.replace("restrict ", "") for k, v in pack_params.items()}, **common)
 
     pp = LanePyPrinter(o.name, kernel)
     fns = [pp.function(r) for r in kernel.routines if r.role not in ("factor", "solve")]

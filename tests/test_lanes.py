@@ -1,0 +1,265 @@
+"""Batched kernels (lanes = W), C and NumPy twins, against LAPACK getrf per matrix (scipy), LAPACK's factor and solve
+ratios and Higham's componentwise bound; canaries around every buffer and in the unused lanes of a last group."""
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import scipy.linalg
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from conftest import PIVOT_LOOPS, SHORT, build_catalogue
+from derive.check.accuracy import componentwise_ratio, factor_ratio, solve_ratio
+from derive.check.harness import LaneKernel, interleave_index
+from derive.lowering import lanes as ln
+from derive.lowering.ir import Loop, walk
+from derive.lowering.lower import lower_kernel
+from derive.options import make_options
+from derive.spec import SpecError, parse
+
+THRESH = 30.0   # LAPACK TESTING/dtest.in: the largest acceptable test ratio
+
+# (block, inner, scalar, layout, lanes): every pivot-capable ordering gets each row, so blocks 1, 2, 3 and 5,
+# each inner ordering, both scalars and layouts, and widths that are and are not powers of two are covered
+VARIANTS = ((1, None, "double", "column-major", 4), (1, None, "float", "row-major", 8),
+            (3, "crout", "double", "row-major", 3), (5, "left-looking", "float", "column-major", 16),
+            (2, "right-looking", "double", "column-major", 2))
+
+
+def lanes_spec() -> str:
+    out = []
+    for loop in PIVOT_LOOPS:
+        for block, inner, scalar, layout, w in VARIANTS:
+            name = f"l_{SHORT[loop]}_b{block}_{scalar[0]}{layout[0]}_w{w}"
+            out.append(f'[[kernel]]\nname = "{name}"\nloop = "{loop}"\nblock = {block}\nscalar = "{scalar}"\n'
+                       f'layout = "{layout}"\npivoting = "partial"\nlanes = {w}\n'
+                       + (f'inner = "{inner}"\n' if inner else ""))
+    return "\n".join(out)
+
+
+KERNELS = [line.split('"')[1] for line in lanes_spec().splitlines() if line.startswith("name = ")]
+
+
+@pytest.fixture(scope="module")
+def lanes(tmp_path_factory):
+    built = build_catalogue(lanes_spec(), "lanes.toml", tmp_path_factory.mktemp("lanes"))
+    return {k: (_lane(b), b.py, b.options) for k, b in built.items()}
+
+
+def _lane(b):
+    # the catalogue builder wraps every kernel for the single-matrix ABI; the lanes ABI needs its own wrapper
+    return LaneKernel(type("M", (), {"ffi": b.c.ffi, "lib": b.c.lib})(), b.options)
+
+
+def getrf(a):
+    """LAPACK getrf of one matrix: (lu, 0-based pivots, info as the 1-based index of the first zero pivot)."""
+    f = scipy.linalg.lapack.sgetrf if a.dtype == np.float32 else scipy.linalg.lapack.dgetrf
+    return f(a)
+
+
+def stack(rng, count, n, dtype):
+    return rng.standard_normal((count, n, n)).astype(dtype)
+
+
+@pytest.mark.parametrize("name", KERNELS)
+@settings(max_examples=4)
+@given(n=st.integers(0, 20), extra=st.integers(0, 40), seed=st.integers(0, 2 ** 32 - 1))
+def test_factor_and_solve_per_matrix(lanes, name, n, extra, seed):
+    ck, py, o = lanes[name]
+    rng = np.random.default_rng(seed)
+    count = extra % (3 * o.lanes + 2)          # whole groups, a partial last group, or none at all
+    mats = stack(rng, count, n, ck.dtype)
+    code, info, lu, ipiv, ok = ck.factor(mats)
+    assert code == 0 and ok, "bad code, or wrote outside the matrices, their pivots or codes (unused lanes too)"
+    assert not info.any()
+    pinfo, pipiv = py.factor(pmats := mats.copy())
+    assert np.array_equal(pinfo, info) and np.array_equal(pipiv, ipiv), "the NumPy twin pivots differently"
+    b = rng.standard_normal((count, n)).astype(ck.dtype)
+    scode, x, sok = ck.solve(lu, ipiv, b)
+    assert scode == 0 and sok
+    px = py.solve(pmats, pipiv, b.copy())
+    for m in range(count if n else 0):
+        ref_lu, ref_piv, ref_info = getrf(mats[m])
+        # pivots: the same rule as getrf (first entry of largest magnitude), matrix by matrix
+        assert np.array_equal(ipiv[m], ref_piv), f"matrix {m}: pivots differ from LAPACK getrf"
+        assert ref_info == 0
+        # LAPACK TESTING/LIN/dget01.f and dget02.f ratios, below THRESH
+        assert factor_ratio(mats[m], lu[m], ipiv[m]) < THRESH
+        assert factor_ratio(mats[m], pmats[m], pipiv[m]) < THRESH
+        assert solve_ratio(mats[m], x[m], b[m]) < THRESH
+        assert solve_ratio(mats[m], px[m], b[m]) < THRESH
+        # Higham, Accuracy and Stability of Numerical Algorithms, 2nd ed., 2002, Thm 9.3: |PA - LU| <= gamma_n |L||U|
+        assert componentwise_ratio(mats[m], lu[m], ipiv[m]) <= 1
+        assert componentwise_ratio(mats[m], pmats[m], pipiv[m]) <= 1
+
+
+def singular_mix(rng, count, n, dtype):
+    """Regular matrices with, in every third lane, an exactly singular one: a zero column (row operations keep
+    it zero, so its pivot is exactly zero) at a different place each time, or no nonzero entry at all."""
+    mats = stack(rng, count, n, dtype)
+    for m in range(0, count, 3):
+        if (m // 3) % 3 == 2:
+            mats[m][:] = 0
+        else:
+            mats[m][:, (m // 3) % n] = 0
+    return mats
+
+
+@pytest.mark.parametrize("name", KERNELS)
+def test_exact_zero_pivots_beside_regular_lanes(lanes, name):
+    ck, py, o = lanes[name]
+    rng = np.random.default_rng(7)
+    n, count = 6, 2 * o.lanes + 1
+    mats = singular_mix(rng, count, n, ck.dtype)
+    code, info, lu, ipiv, ok = ck.factor(mats)
+    pinfo, pipiv = py.factor(mats.copy())
+    assert code == 0 and ok
+    assert np.array_equal(pinfo, info) and np.array_equal(pipiv, ipiv)
+    for m in range(count):
+        ref_lu, ref_piv, ref_info = getrf(mats[m])
+        # getrf's INFO = i > 0: U(i,i) is exactly zero (1-based), the factorization completed: our k+1
+        assert info[m] == ref_info, f"matrix {m}: code {info[m]}, getrf says {ref_info}"
+        assert np.array_equal(ipiv[m], ref_piv)
+        assert (info[m] != 0) == (m % 3 == 0)
+        assert componentwise_ratio(mats[m], lu[m], ipiv[m]) <= 1
+
+
+@pytest.mark.parametrize("name", KERNELS)
+def test_nan_in_one_lane_touches_no_other(lanes, name):
+    ck, py, o = lanes[name]
+    rng = np.random.default_rng(11)
+    n, count = 5, o.lanes + 1
+    mats = stack(rng, count, n, ck.dtype)
+    b = rng.standard_normal((count, n)).astype(ck.dtype)
+    _, info0, lu0, ipiv0, _ = ck.factor(mats)
+    _, x0, _ = ck.solve(lu0, ipiv0, b)
+    bad = mats.copy()
+    bad[1, 2, 1] = np.nan
+    bad[0, 0, 0] = np.inf
+    code, info1, lu1, ipiv1, ok = ck.factor(bad)
+    _, x1, sok = ck.solve(lu1, ipiv1, b)
+    assert code == 0 and ok and sok
+    assert np.isnan(lu1[1]).any()
+    rest = np.arange(2, count)
+    # bit for bit: the other lanes run the same instructions on the same data
+    assert np.array_equal(lu1[rest], lu0[rest]) and np.array_equal(ipiv1[rest], ipiv0[rest])
+    assert np.array_equal(info1[rest], info0[rest]) and np.array_equal(x1[rest], x0[rest])
+    assert np.all((ipiv1 >= 0) & (ipiv1 < n)), "a NaN lane must still record pivots inside the matrix"
+    pbad, pm = bad.copy(), mats.copy()
+    pinfo, pipiv = py.factor(pbad)
+    py.factor(pm)
+    assert np.array_equal(pipiv, ipiv1) and np.array_equal(pinfo, info1)
+    assert np.array_equal(pbad[rest], pm[rest])
+
+
+@pytest.mark.parametrize("name", KERNELS[:5])
+def test_bad_arguments(lanes, name):
+    ck, py, o = lanes[name]
+    ffi, t = ck.ffi, ck.ctype
+    a = np.zeros(4 * 4 * o.lanes, ck.dtype)
+    piv = np.zeros(8, np.intc)
+    info = np.zeros(2, np.intc)
+    A, P, I = ck.ptr(a, 0, t), ck.ptr(piv, 0, "int"), ck.ptr(info, 0, "int")
+    f, s = ck._factor, ck._solve
+    # negative codes name the bad argument by position, as the header documents
+    assert f(-1, 4, A, P, I) == -1
+    assert f(2, -1, A, P, I) == -2
+    assert f(2, 4, ffi.NULL, P, I) == -3
+    assert f(2, 4, A, ffi.NULL, I) == -4
+    assert f(2, 4, A, P, ffi.NULL) == -5
+    assert f(0, 4, ffi.NULL, ffi.NULL, ffi.NULL) == 0
+    info[:] = 9
+    assert f(2, 0, ffi.NULL, ffi.NULL, I) == 0 and not info.any(), "n = 0: every matrix succeeds"
+    b = np.zeros(4 * o.lanes, ck.dtype)
+    B = ck.ptr(b, 0, t)
+    cA = ck.ptr(a, 0, f"const {t}")
+    good = np.tile(np.arange(4, dtype=np.intc), 2)
+    for bad_entry in (0, 4):     # entry k = 1 of matrix 1: below k, or past the last row
+        piv[:] = good
+        piv[5] = bad_entry
+        b[:] = 3.0
+        assert s(2, 4, cA, ck.ptr(piv, 0, "const int"), B) == -4
+        assert np.all(b == 3.0), "a refused solve must leave b alone"
+    piv[:] = good
+    cP = ck.ptr(piv, 0, "const int")
+    assert s(-1, 4, cA, cP, B) == -1
+    assert s(2, -1, cA, cP, B) == -2
+    assert s(2, 4, ffi.NULL, cP, B) == -3
+    assert s(2, 4, cA, ffi.NULL, B) == -4
+    assert s(2, 4, cA, cP, ffi.NULL) == -5
+    assert s(0, 4, ffi.NULL, ffi.NULL, ffi.NULL) == 0
+    for fn in (ck.pack_fn, ck.unpack_fn):
+        assert fn(-1, 2, ck.ptr(a, 0, f"const {t}"), A) == -1
+        assert fn(1, -2, ck.ptr(a, 0, f"const {t}"), A) == -2
+        assert fn(1, 2, ffi.NULL, A) == -3
+        assert fn(1, 2, ck.ptr(a, 0, f"const {t}"), ffi.NULL) == -4
+    with pytest.raises(ValueError):
+        py.factor(np.zeros((2, 3, 4), ck.dtype))
+    with pytest.raises(TypeError):
+        py.factor(np.zeros((2, 3, 3), np.int64))
+    with pytest.raises(ValueError):
+        py.solve(np.zeros((2, 3, 3), ck.dtype), np.zeros((2, 3), int), np.zeros((2, 4), ck.dtype))
+
+
+@pytest.mark.parametrize("name", KERNELS[:5])
+def test_pack_follows_the_documented_storage(lanes, name):
+    ck, py, o = lanes[name]
+    rng = np.random.default_rng(3)
+    for count, n in ((0, 3), (1, 1), (2 * o.lanes + 1, 4)):
+        mats = stack(rng, count, n, ck.dtype)
+        packed = ck.pack(mats)
+        idx = interleave_index(count, n, o.lanes, o.layout)
+        assert np.array_equal(packed[idx], mats)
+        unused = np.ones(packed.shape, bool)
+        unused[idx.ravel()] = False
+        assert np.all(packed[unused] == -7.25e11), "pack wrote a lane past count"
+        assert np.array_equal(py.pack(mats)[idx], mats)
+        assert np.array_equal(py.unpack(py.pack(mats), count, n), mats)
+        back = np.zeros(count * n * n, ck.dtype)
+        assert ck.unpack_fn(count, n, ck.ptr(packed, 0, f"const {ck.ctype}"), ck.ptr(back, 0, ck.ctype)) == 0
+        order = "F" if o.layout == "column-major" else "C"
+        assert np.array_equal(back, np.concatenate([m.ravel(order=order) for m in mats]) if count else back)
+
+
+def test_lane_kernel_is_the_scalar_ir_over_lanes():
+    """The lanes lowering adds no code path of its own per ordering: unwrapping each lane statement gives back,
+    statement for statement, the loop IR of the single-matrix kernel of the same options."""
+    for loop in PIVOT_LOOPS:
+        for block in (1, 4):
+            o = make_options("k", loop, block=block, pivoting="partial", lanes=8)
+            scalar = lower_kernel(o)
+            batched = ln.lower_lanes(scalar, o)
+            back = {"k_group": "k", "k_solve_group": "k_solve"}
+            for r in batched.routines:
+                if r.role in ("factor", "solve"):
+                    assert [type(s) for s in r.body] == [ln.Groups]
+                    continue
+                src = scalar.routine(back.get(r.name, r.name))
+                assert len(walk(r.body)) == len(walk(src.body))
+                for got, want in zip(walk(r.body), walk(src.body)):
+                    if isinstance(got, ln.OverLanes):
+                        assert got.stmt == want
+                    elif isinstance(got, ln.SelectPivot):
+                        assert got.column == want.column
+                    elif isinstance(got, ln.SelectSwaps):
+                        assert (got.matrix, got.cols, got.steps) == (want.matrix, want.cols, want.steps)
+                    elif isinstance(got, ln.LaneFactorCall):
+                        assert (got.block, got.routine) == (want.block, want.routine)
+                    elif isinstance(got, Loop):
+                        assert (got.extent, got.step, got.invariant) == (want.extent, want.step, want.invariant)
+                    else:
+                        assert got == want
+
+
+@pytest.mark.parametrize("value, says", [(0, "from 1"), (65, "to 64"), (True, "integer"), ('"8"', "integer")])
+def test_spec_refuses_bad_lanes(value, says):
+    text = f'[[kernel]]\nname = "k"\nloop = "crout"\npivoting = "partial"\nlanes = {value}\n'
+    with pytest.raises(SpecError) as e:
+        parse(text.replace("True", "true"), "s.toml")
+    assert "key 'lanes'" in str(e.value) and says in str(e.value)
+
+
+def test_spec_refuses_lanes_without_pivoting():
+    with pytest.raises(SpecError) as e:
+        parse('[[kernel]]\nname = "k"\nloop = "bordered"\nlanes = 4\n', "s.toml")
+    assert "key 'lanes'" in str(e.value) and "pivoting" in str(e.value)
