@@ -267,7 +267,18 @@ def _general_driver(o: KernelOptions, sizes: list[int]) -> str:
 
 
 # First match wins: specific kinds (fixed size, lanes) go before the general one, which takes every kernel.
+def _lanes_check(s: Subject, budget: Budget, rng) -> Row:
+    from derive.check.verify_lanes import check_lanes
+    return check_lanes(s, budget, rng)
+
+
+def _lanes_driver(o: KernelOptions, sizes: list[int]) -> str:
+    from derive.check.verify_lanes import lanes_driver
+    return lanes_driver(o, sizes)
+
+
 KINDS: list[Kind] = [
+    Kind("lanes", lambda o: o.lanes > 1, _lanes_check, _lanes_driver),
     Kind("fixed", lambda o: getattr(o, "size", None) is not None, check_fixed, _general_driver),
     Kind("general", lambda o: True, check_general, _general_driver),
 ]
