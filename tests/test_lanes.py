@@ -9,7 +9,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from conftest import PIVOT_LOOPS, SHORT, build_catalogue
-from derive.check.accuracy import componentwise_ratio, factor_ratio, solve_ratio
+from derive.check.accuracy import apply_swaps, componentwise_ratio, factor_ratio, solve_ratio
 from derive.check.harness import LaneKernel, interleave_index
 from derive.lowering import lanes as ln
 from derive.lowering.ir import Loop, walk
@@ -263,3 +263,28 @@ def test_spec_refuses_lanes_without_pivoting():
     with pytest.raises(SpecError) as e:
         parse('[[kernel]]\nname = "k"\nloop = "bordered"\nlanes = 4\n', "s.toml")
     assert "key 'lanes'" in str(e.value) and "pivoting" in str(e.value)
+
+
+@pytest.mark.parametrize("name", KERNELS[:5])
+def test_subnormal_pivot_is_lifted_not_overflowed(lanes, name):
+    """A column of subnormal entries: its reciprocal would overflow, so the kernel lifts it by a power of two
+    first. Column 0 of L must be P A's column 0 over the pivot (each entry divided once, as reference LAPACK's
+    dgetrf2.f does below SFMIN). scipy's getrf (OpenBLAS) leaves such a column unscaled, so its later pivots
+    are no reference here; the first pivot is the largest entry, as in every getrf."""
+    ck, py, o = lanes[name]
+    rng = np.random.default_rng(5)
+    n, count = 4, o.lanes + 1
+    mats = stack(rng, count, n, ck.dtype)
+    tiny = np.finfo(ck.dtype).tiny
+    mats[1][:, 0] = (rng.integers(1, 2 ** 10, n) * tiny * 2.0 ** -12).astype(ck.dtype)   # exact subnormals
+    code, info, lu, ipiv, ok = ck.factor(mats)
+    pm = mats.copy()
+    _, pipiv = py.factor(pm)
+    assert code == 0 and ok and not info.any()
+    assert ipiv[1][0] == np.argmax(np.abs(mats[1][:, 0])) and np.array_equal(pipiv[1], ipiv[1])
+    col = apply_swaps(mats[1], ipiv[1])[:, 0]
+    want = col[1:] / col[0]
+    rtol = 2 * np.finfo(ck.dtype).eps     # one rounding more than the division (common practice)
+    for got in (lu[1], pm[1]):
+        assert np.all(np.isfinite(got)) and got[0, 0] == col[0]
+        assert np.allclose(got[1:, 0], want, rtol=rtol, atol=0)
