@@ -288,3 +288,16 @@ def test_subnormal_pivot_is_lifted_not_overflowed(lanes, name):
     for got in (lu[1], pm[1]):
         assert np.all(np.isfinite(got)) and got[0, 0] == col[0]
         assert np.allclose(got[1:, 0], want, rtol=rtol, atol=0)
+
+
+def test_ir_dump_shows_the_lane_statements(tmp_path):
+    import subprocess
+    import sys
+    spec = tmp_path / "s.toml"
+    spec.write_text('[[kernel]]\nname = "k"\nloop = "crout"\nblock = 2\npivoting = "partial"\nlanes = 8\n')
+    out = subprocess.run([sys.executable, "-m", "derive", "derive", "--spec", str(spec), "--kernel", "k", "--ir"],
+                         capture_output=True, text=True, cwd=str(tmp_path.parent))
+    assert out.returncode == 0, out.stderr
+    for text in ("over 8 lanes: gemm", "per-lane pivot by selects", "per-lane interchanges by selects",
+                 "for each group of 8 matrices"):
+        assert text in out.stdout

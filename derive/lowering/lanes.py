@@ -165,7 +165,7 @@ def dump_lane_stmt(s, indent: str = "") -> list[str]:
     if isinstance(s, OverLanes):
         return [f"{indent}over {s.width} lanes: {ln.lstrip()}" for ln in dump_stmt(s.stmt)]
     if isinstance(s, SelectPivot):
-        return [f"{indent}per-lane pivot by selects: choose in {show_block(s.column)}, interchange, divide below"
+        return [f"{indent}per-lane pivot by selects: choose in {show_block(s.column)}, interchange, scale below by its reciprocal"
                 f"    [{s.source}]"]
     if isinstance(s, SelectSwaps):
         return [f"{indent}per-lane interchanges by selects: rows of {s.matrix}[.]{show_span(s.cols)} for steps "
@@ -176,3 +176,11 @@ def dump_lane_stmt(s, indent: str = "") -> list[str]:
         binds = ", ".join(f"{k} = {show_lin(v)}" for k, v in s.binds)
         return [f"{indent}for each group of {s.width} matrices: call {s.routine} ({binds})    [{s.source}]"]
     return dump_stmt(s, indent)
+
+
+def dump_lane_routine(r: Routine) -> str:
+    params = ", ".join(p.name for p in r.params)
+    lines = [f"routine {r.name}({params})  role={r.role}" + (f" on_zero={r.on_zero}" if r.on_zero else "")]
+    for s in r.body:
+        lines += dump_lane_stmt(s, "  ")
+    return "\n".join(lines)
