@@ -9,6 +9,7 @@ import platform
 import subprocess
 import sys
 import tempfile
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
 import numpy as np
@@ -23,7 +24,8 @@ from derive.options import make_options  # noqa: E402
 
 SIZES = (4, 6, 8, 12, 16)
 SCALARS = ("double", "float")
-WIDTHS = (4, 8, 16)
+WIDTHS = (4, 8, 16)          # n as an argument
+SIZED_WIDTHS = (8, 16)       # n fixed (size = n): one kernel per n
 CFLAGS = ("-O3", "-march=native")
 CPU = 1
 ROUNDS = 41
@@ -33,20 +35,26 @@ CTYPE = {"double": "double", "float": "float"}
 DTYPE = {"double": np.float64, "float": np.float32}
 
 
-def kernel_name(scalar: str, w: int, loop: str) -> str:
-    return f"bat_{loop.replace('-', '_')}_{scalar[0]}_w{w}"
+def kernel_name(scalar: str, w: int, loop: str, size: int | None = None) -> str:
+    return f"bat_{loop.replace('-', '_')}_{scalar[0]}_w{w}" + (f"_n{size}" if size else "")
 
 
-def driver_source(kernels: list[tuple[str, str]]) -> str:
+def contenders() -> list[tuple[str, int, bool]]:
+    """(column label, W, fixed size?) in table order."""
+    return [(f"W={w}", w, False) for w in WIDTHS] + [(f"W={w},size", w, True) for w in SIZED_WIDTHS]
+
+
+def driver_source(kernels: list[tuple[str, str, int | None]]) -> str:
     """C++ driver: one timing entry per luforge kernel (copy the packed input, factor) and per Eigen instance
     (for each matrix: construct PartialPivLU from the input, which copies it, and factor)."""
     out = ["#include <cstring>", "#include <ctime>", "#include <Eigen/Dense>",
-           'extern "C" {'] + [f'#include "{k}.h"' for k, _ in kernels] + ["}",
+           'extern "C" {'] + [f'#include "{k}.h"' for k, _, _ in kernels] + ["}",
            "static double now() { timespec t; clock_gettime(CLOCK_MONOTONIC, &t); return t.tv_sec * 1e9 + t.tv_nsec; }"]
-    for k, t in kernels:
+    for k, t, size in kernels:
+        n_arg = "" if size else "n, "
         out.append(f'extern "C" double time_{k}(int count, int n, const {t} *src, {t} *work, size_t len, int *ipiv, '
-                   f"int *info) {{ double t0 = now(); std::memcpy(work, src, len * sizeof({t})); "
-                   f"{k}(count, n, work, ipiv, info); return now() - t0; }}")
+                   f"int *info) {{ double t0 = now(); std::memcpy(work, src, len * sizeof({t})); (void)n; "
+                   f"{k}(count, {n_arg}work, ipiv, info); return now() - t0; }}")
     out.append("""template <typename T, int N> static double eigen(int count, const T *src, T *out, int *perm, int check) {
     typedef Eigen::Matrix<T, N, N> M;
     volatile T sink = 0;
@@ -75,21 +83,34 @@ def driver_source(kernels: list[tuple[str, str]]) -> str:
 def build(tmp: Path, loop: str):
     kernels = []
     for scalar in SCALARS:
-        for w in WIDTHS:
-            name = kernel_name(scalar, w, loop)
-            o = make_options(name, loop, scalar=scalar, pivoting="partial", lanes=w, spec="bench/batched.py")
-            write_atomically(tmp, list(emit_kernel(o).files))
-            kernels.append((name, CTYPE[scalar]))
+        for _, w, sized in contenders():
+            for size in (SIZES if sized else (None,)):
+                name = kernel_name(scalar, w, loop, size)
+                o = make_options(name, loop, scalar=scalar, pivoting="partial", lanes=w, size=size,
+                                 spec="bench/batched.py")
+                write_atomically(tmp, list(emit_kernel(o).files))
+                kernels.append((name, CTYPE[scalar], size))
     (tmp / "driver.cpp").write_text(driver_source(kernels))
-    objs = []
-    for k, _ in kernels:
+    def compile_one(k: str) -> str:
         subprocess.run(["gcc", "-std=c99", *CFLAGS, "-fPIC", "-c", str(tmp / f"{k}.c"), "-o", str(tmp / f"{k}.o")],
                        check=True)
-        objs.append(str(tmp / f"{k}.o"))
+        return str(tmp / f"{k}.o")
+    with ThreadPoolExecutor(os.cpu_count() or 1) as pool:
+        objs = list(pool.map(compile_one, [k for k, _, _ in kernels]))
     lib = tmp / "batched.so"
     subprocess.run(["g++", "-std=c++17", *CFLAGS, "-fPIC", "-shared", "-I/usr/include/eigen3", "-I", str(tmp),
                     str(tmp / "driver.cpp"), *objs, "-o", str(lib)], check=True)
     return ctypes.CDLL(str(lib)), kernels
+
+
+def cpu_name() -> str:
+    try:
+        for line in Path("/proc/cpuinfo").read_text().splitlines():
+            if line.startswith("model name"):
+                return line.split(":", 1)[1].strip()
+    except OSError:
+        pass
+    return platform.processor() or platform.machine()
 
 
 def ptr(x: np.ndarray):
@@ -118,20 +139,22 @@ def main() -> int:
     ap.add_argument("--loop", default="right-looking")
     ap.add_argument("--rounds", type=int, default=ROUNDS)
     args = ap.parse_args()
+    cc = subprocess.run(["gcc", "--version"], capture_output=True, text=True).stdout.splitlines()[0]
+    rng = np.random.default_rng(20261202)
+    rows = []
+    td = tempfile.TemporaryDirectory(prefix="luforge-bench-")
+    tmp = Path(td.name)
+    lib, kernels = build(tmp, args.loop)       # compiled on every CPU; timed on one
     if hasattr(os, "sched_setaffinity") and CPU in os.sched_getaffinity(0):
         os.sched_setaffinity(0, {CPU})
     pinned = sorted(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else "?"
-    cc = subprocess.run(["gcc", "--version"], capture_output=True, text=True).stdout.splitlines()[0]
-    print(f"batched pivoted LU, time per matrix; machine: {platform.processor() or platform.machine()}, "
+    print(f"batched pivoted LU, time per matrix; machine: {cpu_name()}, {os.cpu_count()} CPUs, "
           f"{cc}, {' '.join(CFLAGS)}; pinned to CPU {pinned}; medians of {args.rounds} interleaved rounds")
-    print(f"luforge: {args.loop} loop, block 1, runtime n, W matrices interleaved; Eigen 3 PartialPivLU<Matrix<T,N,N>>;"
+    print(f"luforge: {args.loop} loop, block 1, W matrices interleaved, n an argument or fixed (size); Eigen 3 "
+          "PartialPivLU<Matrix<T,N,N>>;"
           " both copy their input; every result checked against LAPACK getrf (scipy) first")
-    rng = np.random.default_rng(20261202)
-    rows = []
-    with tempfile.TemporaryDirectory(prefix="luforge-bench-") as td:
-        tmp = Path(td)
-        lib, kernels = build(tmp, args.loop)
-        twins = {k: load_python(tmp / f"{k}.py") for k, _ in kernels}
+    with td:
+        twins = {k: load_python(tmp / f"{k}.py") for k, _, _ in kernels}
         for scalar in SCALARS:
             dt = DTYPE[scalar]
             for n in SIZES:
@@ -153,8 +176,8 @@ def main() -> int:
                     if not np.array_equal(got, want) or not np.allclose(lu_e[m], ref_lu[m], rtol=tol, atol=tol):
                         raise SystemExit(f"Eigen n={n} {scalar}: matrix {m} differs from getrf")
                 timers = {"Eigen": lambda: fe(count, ptr(src_e), ptr(out_e), ptr(perm_e), 0)}
-                for k, t in kernels:
-                    if t != CTYPE[scalar]:
+                for k, t, size in kernels:
+                    if t != CTYPE[scalar] or size not in (None, n):
                         continue
                     src = twins[k].pack(mats)
                     work = np.empty_like(src)
@@ -179,15 +202,19 @@ def main() -> int:
                 med = {k: float(np.median(v)) for k, v in samples.items()}
                 rows.append((scalar, n, count, med))
     head = f"{'scalar':<7}{'n':>4}{'count':>7}{'Eigen ns':>10}" + "".join(
-        f"{'W=' + str(w) + ' ns':>10}{'ratio':>7}" for w in WIDTHS)
+        f"{label + ' ns':>15}{'ratio':>7}" for label, _, _ in contenders())
     print(head)
     for scalar, n, count, med in rows:
         line = f"{scalar:<7}{n:>4}{count:>7}{med['Eigen']:>10.1f}"
-        for w in WIDTHS:
-            v = med[kernel_name(scalar, w, args.loop)]
-            line += f"{v:>10.1f}{v / med['Eigen']:>7.3f}"
+        for _, w, sized in contenders():
+            v = med[kernel_name(scalar, w, args.loop, n if sized else None)]
+            line += f"{v:>15.1f}{v / med['Eigen']:>7.3f}"
         print(line)
     print("ratio = luforge time per matrix / Eigen's; figures to reach: <= 0.1 at n = 4..8, <= 0.2 at n = 16")
+    for scalar in SCALARS:
+        best = {n: min(med[kernel_name(scalar, w, args.loop, n if sized else None)] / med["Eigen"]
+                       for _, w, sized in contenders()) for s_, n, _, med in rows if s_ == scalar}
+        print(f"{scalar}: best ratio per n: " + ", ".join(f"n={n}: {r:.2f}" for n, r in best.items()))
     plot(rows, args.loop)
     return 0
 
@@ -206,8 +233,9 @@ def plot(rows, loop: str) -> None:
         sel = [(n, med) for s, n, _, med in rows if s == scalar]
         ns = [n for n, _ in sel]
         ax.plot(ns, [m["Eigen"] for _, m in sel], "k-o", label="Eigen PartialPivLU<N,N>")
-        for w in WIDTHS:
-            ax.plot(ns, [m[kernel_name(scalar, w, loop)] for _, m in sel], "-s", label=f"luforge lanes = {w}")
+        for label, w, sized in contenders():
+            ax.plot(ns, [m[kernel_name(scalar, w, loop, n if sized else None)] for n, m in sel], "-s",
+                    label=f"luforge {label.replace('W=', 'lanes = ')}")
         ax.set_title(f"{scalar}: pivoted LU, ns per matrix")
         ax.set_xlabel("n")
         ax.set_yscale("log")

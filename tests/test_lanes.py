@@ -12,28 +12,30 @@ from conftest import PIVOT_LOOPS, SHORT, build_catalogue
 from derive.check.accuracy import apply_swaps, componentwise_ratio, factor_ratio, solve_ratio
 from derive.check.harness import LaneKernel, interleave_index
 from derive.lowering import lanes as ln
-from derive.lowering.ir import Loop, walk
+from derive.lowering.ir import FactorCall, Gemm, Loop, PivotSearch, RowSwaps, Scale, Trsm, walk
 from derive.lowering.lower import lower_kernel
 from derive.options import make_options
 from derive.spec import SpecError, parse
 
 THRESH = 30.0   # LAPACK TESTING/dtest.in: the largest acceptable test ratio
 
-# (block, inner, scalar, layout, lanes): every pivot-capable ordering gets each row, so blocks 1, 2, 3 and 5,
-# each inner ordering, both scalars and layouts, and widths that are and are not powers of two are covered
-VARIANTS = ((1, None, "double", "column-major", 4), (1, None, "float", "row-major", 8),
-            (3, "crout", "double", "row-major", 3), (5, "left-looking", "float", "column-major", 16),
-            (2, "right-looking", "double", "column-major", 2))
+# (block, inner, scalar, layout, lanes, size): every pivot-capable ordering gets each row, so blocks 1, 2, 3
+# and 5, each inner ordering, both scalars and layouts, widths that are and are not powers of two, and n as an
+# argument or fixed (size) are covered
+VARIANTS = ((1, None, "double", "column-major", 4, None), (1, None, "float", "row-major", 8, None),
+            (3, "crout", "double", "row-major", 3, None), (5, "left-looking", "float", "column-major", 16, None),
+            (2, "right-looking", "double", "column-major", 2, None), (1, None, "double", "column-major", 8, 4),
+            (3, "right-looking", "float", "row-major", 4, 7))
 
 
 def lanes_spec() -> str:
     out = []
     for loop in PIVOT_LOOPS:
-        for block, inner, scalar, layout, w in VARIANTS:
-            name = f"l_{SHORT[loop]}_b{block}_{scalar[0]}{layout[0]}_w{w}"
+        for block, inner, scalar, layout, w, size in VARIANTS:
+            name = f"l_{SHORT[loop]}_b{block}_{scalar[0]}{layout[0]}_w{w}" + (f"_n{size}" if size else "")
             out.append(f'[[kernel]]\nname = "{name}"\nloop = "{loop}"\nblock = {block}\nscalar = "{scalar}"\n'
                        f'layout = "{layout}"\npivoting = "partial"\nlanes = {w}\n'
-                       + (f'inner = "{inner}"\n' if inner else ""))
+                       + (f'inner = "{inner}"\n' if inner else "") + (f"size = {size}\n" if size else ""))
     return "\n".join(out)
 
 
@@ -67,6 +69,7 @@ def stack(rng, count, n, dtype):
 def test_factor_and_solve_per_matrix(lanes, name, n, extra, seed):
     ck, py, o = lanes[name]
     rng = np.random.default_rng(seed)
+    n = o.size or n
     count = extra % (3 * o.lanes + 2)          # whole groups, a partial last group, or none at all
     mats = stack(rng, count, n, ck.dtype)
     code, info, lu, ipiv, ok = ck.factor(mats)
@@ -109,7 +112,7 @@ def singular_mix(rng, count, n, dtype):
 def test_exact_zero_pivots_beside_regular_lanes(lanes, name):
     ck, py, o = lanes[name]
     rng = np.random.default_rng(7)
-    n, count = 6, 2 * o.lanes + 1
+    n, count = o.size or 6, 2 * o.lanes + 1
     mats = singular_mix(rng, count, n, ck.dtype)
     code, info, lu, ipiv, ok = ck.factor(mats)
     pinfo, pipiv = py.factor(mats.copy())
@@ -128,7 +131,7 @@ def test_exact_zero_pivots_beside_regular_lanes(lanes, name):
 def test_nan_in_one_lane_touches_no_other(lanes, name):
     ck, py, o = lanes[name]
     rng = np.random.default_rng(11)
-    n, count = 5, o.lanes + 1
+    n, count = o.size or 5, o.lanes + 1
     mats = stack(rng, count, n, ck.dtype)
     b = rng.standard_normal((count, n)).astype(ck.dtype)
     _, info0, lu0, ipiv0, _ = ck.factor(mats)
@@ -152,47 +155,54 @@ def test_nan_in_one_lane_touches_no_other(lanes, name):
     assert np.array_equal(pbad[rest], pm[rest])
 
 
-@pytest.mark.parametrize("name", KERNELS[:5])
+@pytest.mark.parametrize("name", KERNELS[:7])
 def test_bad_arguments(lanes, name):
     ck, py, o = lanes[name]
     ffi, t = ck.ffi, ck.ctype
-    a = np.zeros(4 * 4 * o.lanes, ck.dtype)
-    piv = np.zeros(8, np.intc)
+    n = o.size or 4
+    N = ck.n_arg(n)               # n is an argument unless the kernel's size fixes it
+    off = len(N)                  # ... and then the positions after count move by one
+    a = np.zeros(n * n * o.lanes, ck.dtype)
+    piv = np.zeros(2 * n, np.intc)
     info = np.zeros(2, np.intc)
     A, P, I = ck.ptr(a, 0, t), ck.ptr(piv, 0, "int"), ck.ptr(info, 0, "int")
     f, s = ck._factor, ck._solve
     # negative codes name the bad argument by position, as the header documents
-    assert f(-1, 4, A, P, I) == -1
-    assert f(2, -1, A, P, I) == -2
-    assert f(2, 4, ffi.NULL, P, I) == -3
-    assert f(2, 4, A, ffi.NULL, I) == -4
-    assert f(2, 4, A, P, ffi.NULL) == -5
-    assert f(0, 4, ffi.NULL, ffi.NULL, ffi.NULL) == 0
-    info[:] = 9
-    assert f(2, 0, ffi.NULL, ffi.NULL, I) == 0 and not info.any(), "n = 0: every matrix succeeds"
-    b = np.zeros(4 * o.lanes, ck.dtype)
+    assert f(-1, *N, A, P, I) == -1
+    assert f(2, *N, ffi.NULL, P, I) == -(2 + off)
+    assert f(2, *N, A, ffi.NULL, I) == -(3 + off)
+    assert f(2, *N, A, P, ffi.NULL) == -(4 + off)
+    assert f(0, *N, ffi.NULL, ffi.NULL, ffi.NULL) == 0
+    if off:
+        assert f(2, -1, A, P, I) == -2
+        info[:] = 9
+        assert f(2, 0, ffi.NULL, ffi.NULL, I) == 0 and not info.any(), "n = 0: every matrix succeeds"
+    b = np.zeros(n * o.lanes, ck.dtype)
     B = ck.ptr(b, 0, t)
     cA = ck.ptr(a, 0, f"const {t}")
-    good = np.tile(np.arange(4, dtype=np.intc), 2)
-    for bad_entry in (0, 4):     # entry k = 1 of matrix 1: below k, or past the last row
+    good = np.tile(np.arange(n, dtype=np.intc), 2)
+    for bad_entry in (0, n):      # entry k = 1 of matrix 1: below k, or past the last row
         piv[:] = good
-        piv[5] = bad_entry
+        piv[n + 1] = bad_entry
         b[:] = 3.0
-        assert s(2, 4, cA, ck.ptr(piv, 0, "const int"), B) == -4
+        assert s(2, *N, cA, ck.ptr(piv, 0, "const int"), B) == -(3 + off)
         assert np.all(b == 3.0), "a refused solve must leave b alone"
     piv[:] = good
     cP = ck.ptr(piv, 0, "const int")
-    assert s(-1, 4, cA, cP, B) == -1
-    assert s(2, -1, cA, cP, B) == -2
-    assert s(2, 4, ffi.NULL, cP, B) == -3
-    assert s(2, 4, cA, ffi.NULL, B) == -4
-    assert s(2, 4, cA, cP, ffi.NULL) == -5
-    assert s(0, 4, ffi.NULL, ffi.NULL, ffi.NULL) == 0
+    assert s(-1, *N, cA, cP, B) == -1
+    assert s(2, *N, ffi.NULL, cP, B) == -(2 + off)
+    assert s(2, *N, cA, ffi.NULL, B) == -(3 + off)
+    assert s(2, *N, cA, cP, ffi.NULL) == -(4 + off)
+    assert s(0, *N, ffi.NULL, ffi.NULL, ffi.NULL) == 0
+    if off:
+        assert s(2, -1, cA, cP, B) == -2
+    src = ck.ptr(a, 0, f"const {t}")
     for fn in (ck.pack_fn, ck.unpack_fn):
-        assert fn(-1, 2, ck.ptr(a, 0, f"const {t}"), A) == -1
-        assert fn(1, -2, ck.ptr(a, 0, f"const {t}"), A) == -2
-        assert fn(1, 2, ffi.NULL, A) == -3
-        assert fn(1, 2, ck.ptr(a, 0, f"const {t}"), ffi.NULL) == -4
+        assert fn(-1, *N, src, A) == -1
+        assert fn(1, *N, ffi.NULL, A) == -(2 + off)
+        assert fn(1, *N, src, ffi.NULL) == -(3 + off)
+        if off:
+            assert fn(1, -2, src, A) == -2
     with pytest.raises(ValueError):
         py.factor(np.zeros((2, 3, 4), ck.dtype))
     with pytest.raises(TypeError):
@@ -201,11 +211,11 @@ def test_bad_arguments(lanes, name):
         py.solve(np.zeros((2, 3, 3), ck.dtype), np.zeros((2, 3), int), np.zeros((2, 4), ck.dtype))
 
 
-@pytest.mark.parametrize("name", KERNELS[:5])
+@pytest.mark.parametrize("name", KERNELS[:7])
 def test_pack_follows_the_documented_storage(lanes, name):
     ck, py, o = lanes[name]
     rng = np.random.default_rng(3)
-    for count, n in ((0, 3), (1, 1), (2 * o.lanes + 1, 4)):
+    for count, n in ((0, o.size or 3), (1, o.size or 1), (2 * o.lanes + 1, o.size or 4)):
         mats = stack(rng, count, n, ck.dtype)
         packed = ck.pack(mats)
         idx = interleave_index(count, n, o.lanes, o.layout)
@@ -216,7 +226,7 @@ def test_pack_follows_the_documented_storage(lanes, name):
         assert np.array_equal(py.pack(mats)[idx], mats)
         assert np.array_equal(py.unpack(py.pack(mats), count, n), mats)
         back = np.zeros(count * n * n, ck.dtype)
-        assert ck.unpack_fn(count, n, ck.ptr(packed, 0, f"const {ck.ctype}"), ck.ptr(back, 0, ck.ctype)) == 0
+        assert ck.unpack_fn(count, *ck.n_arg(n), ck.ptr(packed, 0, f"const {ck.ctype}"), ck.ptr(back, 0, ck.ctype)) == 0
         order = "F" if o.layout == "column-major" else "C"
         assert np.array_equal(back, np.concatenate([m.ravel(order=order) for m in mats]) if count else back)
 
@@ -251,6 +261,22 @@ def test_lane_kernel_is_the_scalar_ir_over_lanes():
                         assert got == want
 
 
+def test_fixed_size_lanes_are_the_fixed_kernel_over_lanes():
+    """With `size`, the lanes lowering takes the fixed-size lowering's steps (constant index ranges, pivoting
+    already by selects) and wraps each statement in them: step for step the same, no scalar statement left."""
+    from derive.printers.emit import lower_options
+    for loop in PIVOT_LOOPS:
+        o = make_options("k", loop, block=2, pivoting="partial", size=5, lanes=4)
+        fixed = lower_options(o)
+        batched = ln.lower_lanes(fixed, o)
+        group, single = batched.routine("k_group"), fixed.routine("k")
+        assert [type(s) for s in walk(group.body)] == [
+            {Gemm: ln.OverLanes, Trsm: ln.OverLanes, Scale: ln.OverLanes, PivotSearch: ln.SelectPivot,
+             RowSwaps: ln.SelectSwaps, FactorCall: ln.LaneFactorCall}.get(type(s), type(s)) for s in walk(single.body)]
+        assert all(not isinstance(s, (Gemm, Trsm, Scale, PivotSearch, RowSwaps)) for r in batched.routines
+                   for s in walk(r.body))
+
+
 @pytest.mark.parametrize("value, says", [(0, "from 1"), (65, "to 64"), (True, "integer"), ('"8"', "integer")])
 def test_spec_refuses_bad_lanes(value, says):
     text = f'[[kernel]]\nname = "k"\nloop = "crout"\npivoting = "partial"\nlanes = {value}\n'
@@ -265,7 +291,7 @@ def test_spec_refuses_lanes_without_pivoting():
     assert "key 'lanes'" in str(e.value) and "pivoting" in str(e.value)
 
 
-@pytest.mark.parametrize("name", KERNELS[:5])
+@pytest.mark.parametrize("name", KERNELS[:7])
 def test_subnormal_pivot_is_lifted_not_overflowed(lanes, name):
     """A column of subnormal entries: its reciprocal would overflow, so the kernel lifts it by a power of two
     first. Column 0 of L must be P A's column 0 over the pivot (each entry divided once, as reference LAPACK's
@@ -273,7 +299,7 @@ def test_subnormal_pivot_is_lifted_not_overflowed(lanes, name):
     are no reference here; the first pivot is the largest entry, as in every getrf."""
     ck, py, o = lanes[name]
     rng = np.random.default_rng(5)
-    n, count = 4, o.lanes + 1
+    n, count = o.size or 4, o.lanes + 1
     mats = stack(rng, count, n, ck.dtype)
     tiny = np.finfo(ck.dtype).tiny
     mats[1][:, 0] = (rng.integers(1, 2 ** 10, n) * tiny * 2.0 ** -12).astype(ck.dtype)   # exact subnormals

@@ -140,6 +140,13 @@ class LaneKernel:
     def ptr(self, buf: np.ndarray, offset: int, ctype: str):
         return self.ffi.cast(f"{ctype} *", buf.ctypes.data + offset * buf.itemsize)
 
+    def n_arg(self, n: int) -> tuple[int, ...]:
+        """The n argument, which a fixed-size kernel does not take (it must be its size)."""
+        if self.o.size is not None:
+            assert n == self.o.size, f"kernel {self.o.name} is fixed at n = {self.o.size}"
+            return ()
+        return (n,)
+
     def groups(self, count: int) -> int:
         return -(-count // self.w)
 
@@ -158,7 +165,7 @@ class LaneKernel:
         buf, idx, before = self.storage(np.asarray(mats, dtype=self.dtype))
         piv = np.full(count * n + 2 * GUARD, -12345, dtype=np.intc)
         info = np.full(count + 2 * GUARD, -12345, dtype=np.intc)
-        code = self._factor(count, n, self.ptr(buf, GUARD, self.ctype), self.ptr(piv, GUARD, "int"),
+        code = self._factor(count, *self.n_arg(n), self.ptr(buf, GUARD, self.ctype), self.ptr(piv, GUARD, "int"),
                             self.ptr(info, GUARD, "int"))
         mask = np.ones(buf.shape, bool)
         mask[idx.ravel()] = False
@@ -181,7 +188,7 @@ class LaneKernel:
         piv = np.full(count * n + 2 * GUARD, -12345, dtype=np.intc)
         piv[GUARD:GUARD + count * n] = np.asarray(ipiv, dtype=np.intc).ravel()
         pbefore = piv.copy()
-        code = self._solve(count, n, self.ptr(lbuf, GUARD, f"const {self.ctype}"),
+        code = self._solve(count, *self.n_arg(n), self.ptr(lbuf, GUARD, f"const {self.ctype}"),
                            self.ptr(piv, GUARD, "const int"), self.ptr(bbuf, GUARD, self.ctype))
         mask = np.ones(bbuf.shape, bool)
         mask[bidx.ravel()] = False
@@ -196,6 +203,6 @@ class LaneKernel:
         src = np.concatenate([np.asarray(m, dtype=self.dtype).ravel(order=order) for m in mats]) if count else \
             np.zeros(0, self.dtype)
         out = np.full(self.groups(count) * n * n * self.w, CANARY, dtype=self.dtype)
-        code = self.pack_fn(count, n, self.ptr(src, 0, f"const {self.ctype}"), self.ptr(out, 0, self.ctype))
+        code = self.pack_fn(count, *self.n_arg(n), self.ptr(src, 0, f"const {self.ctype}"), self.ptr(out, 0, self.ctype))
         assert code == 0
         return out

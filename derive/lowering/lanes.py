@@ -2,10 +2,11 @@
 by element; every statement runs across the lanes, and pivot search and interchanges become per-lane selects."""
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 
-from derive.lowering.ir import (Block, Call, FactorCall, Gemm, Kernel, Lin, Loop, Param, PivotCheck, PivotSearch,
-                                RowSwaps, Routine, Scale, Span, Trsm, lin)
+from derive.lowering.ir import (Block, Call, FactorCall, Gemm, Kernel, Lin, Loop, OneColumn, Param, PivotCheck,
+                                PivotSearch, RowSwaps, Routine, Scale, Span, Step, Trsm, lin)
 from derive.lowering.printing import dump_stmt, show_block, show_lin, show_span
 from derive.options import KernelOptions
 from derive.targets.storage import LAYOUTS
@@ -90,17 +91,30 @@ PIVOT_STRIDE = Param("ips", "size")     # ipiv[l * ips + k]: lane l's pivot of s
 LANE_CODES = Param("info", "codes")     # info[l]: lane l's zero-pivot code
 
 
-def lane_stmt(s, width: int, rows_of: dict[str, str]):
+def lane_body(body: tuple, width: int, rows_of: dict[str, Lin]) -> tuple:
+    """Scalar statements as statements over `width` lanes."""
+    out = []
+    for s in body:
+        if isinstance(s, OneColumn):
+            # a batched solve has one right-hand side per matrix: the one-column statements are the solve
+            out += lane_body(s.special, width, rows_of)
+        else:
+            out.append(lane_stmt(s, width, rows_of))
+    return tuple(out)
+
+
+def lane_stmt(s, width: int, rows_of: dict[str, Lin]):
     """One scalar statement as a statement over `width` lanes."""
-    if isinstance(s, Loop):
-        return Loop(s.var, s.extent, s.step, tuple(lane_stmt(t, width, rows_of) for t in s.body), s.invariant,
-                    s.partition)
+    if isinstance(s, (Loop, Step)):      # a loop, or one step of a loop unrolled for a fixed size
+        return dataclasses.replace(s, body=lane_body(s.body, width, rows_of))
     if isinstance(s, (Gemm, Trsm, Scale)):
         return OverLanes(s, width)
+    # the pivot search and the interchanges come as selects where the fixed-size lowering made them so
+    # (constant time); per lane they are selects either way
     if isinstance(s, PivotSearch):
         return SelectPivot(s.column, width, s.source)
     if isinstance(s, RowSwaps):
-        return SelectSwaps(s.matrix, s.cols, s.steps, lin(rows_of[s.matrix]), width, s.source)
+        return SelectSwaps(s.matrix, s.cols, s.steps, rows_of[s.matrix], width, s.source)
     if isinstance(s, FactorCall) and s.pivoted:
         return LaneFactorCall(s.block, s.routine, width, s.source)
     if isinstance(s, Call):
@@ -112,7 +126,7 @@ def lane_stmt(s, width: int, rows_of: dict[str, str]):
 
 
 def _lane_routine(r: Routine, width: int, name: str, role: str) -> Routine:
-    rows_of = {m: ext.split(",")[0] for m, ext in r.extents}
+    rows_of = {m: lin(int(e) if e.isdigit() else e) for m, e in ((m, ext.split(",")[0]) for m, ext in r.extents)}
     params: list[Param] = []
     for p in r.params:
         params.append(p)
@@ -121,7 +135,7 @@ def _lane_routine(r: Routine, width: int, name: str, role: str) -> Routine:
     if r.on_zero == "record":
         params.append(LANE_CODES)
     params.append(LANE_COUNT)
-    body = tuple(lane_stmt(s, width, rows_of) for s in r.body)
+    body = lane_body(r.body, width, rows_of)
     return Routine(name, role, tuple(params), body, r.on_zero, f"{r.doc}, in each lane of a group", r.matrices,
                    r.extents)
 
@@ -131,7 +145,9 @@ def lower_lanes(scalar: Kernel, o: KernelOptions) -> Kernel:
     every routine runs over one group of lanes; the public routines loop over the groups."""
     w = o.lanes
     name = o.name
-    n = lin("n")
+    n = lin(o.size) if o.size else lin("n")        # a fixed size is a constant everywhere, else the argument n
+    sized = (Param("n", "size"),) if not o.size else ()
+    ext = f"{o.size},{o.size}" if o.size else "n,n"
     routines = []
     for r in scalar.routines:
         if r.role == "factor":
@@ -145,15 +161,15 @@ def lower_lanes(scalar: Kernel, o: KernelOptions) -> Kernel:
     ldb = n if LAYOUTS[o.layout].leading == "rows" else lin(1)
     count = Param("count", "count")
     routines.append(Routine(
-        name, "factor", (count, Param("n", "size"), Param("a", "matrix"), Param("ipiv", "pivots"), LANE_CODES),
+        name, "factor", (count, *sized, Param("a", "matrix"), Param("ipiv", "pivots"), LANE_CODES),
         (Groups(f"{name}_group", w, (("lda", n), ("ips", n)), "factor each group of lanes"),), None,
-        "batched LU factorization with partial pivoting", (), (("a", "n,n"),)))
+        "batched LU factorization with partial pivoting", (), (("a", ext),)))
     routines.append(Routine(
-        f"{name}_solve", "solve", (count, Param("n", "size"), Param("lu", "const_matrix"),
-                                   Param("ipiv", "const_pivots"), Param("b", "matrix")),
+        f"{name}_solve", "solve", (count, *sized, Param("lu", "const_matrix"), Param("ipiv", "const_pivots"),
+                                   Param("b", "matrix")),
         (Groups(f"{name}_solve_group", w, (("nrhs", lin(1)), ("lda", n), ("ldb", ldb), ("ips", n)),
                 "solve each group of lanes, one right-hand side per matrix"),), None,
-        "batched solve with the factorization", (), (("lu", "n,n"), ("b", "n,1"))))
+        "batched solve with the factorization", (), (("lu", ext), ("b", ext.split(",")[0] + ",1"))))
     return Kernel(name, tuple(routines))
 
 
@@ -161,6 +177,9 @@ def dump_lane_stmt(s, indent: str = "") -> list[str]:
     """`luforge derive --ir` text of the lane statements (the scalar ones print as before)."""
     if isinstance(s, Loop):
         head = dump_stmt(Loop(s.var, s.extent, s.step, (), s.invariant, s.partition), indent)
+        return head + [ln for t in s.body for ln in dump_lane_stmt(t, indent + "  ")]
+    if isinstance(s, Step):
+        head = dump_stmt(dataclasses.replace(s, body=()), indent)
         return head + [ln for t in s.body for ln in dump_lane_stmt(t, indent + "  ")]
     if isinstance(s, OverLanes):
         return [f"{indent}over {s.width} lanes: {ln.lstrip()}" for ln in dump_stmt(s.stmt)]

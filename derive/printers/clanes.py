@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import re
 
-from derive.lowering.ir import Call, Kernel, Lin, Loop, Param, Routine
+from derive.lowering.ir import Call, Kernel, Lin, Loop, Param, Routine, Step
 from derive.lowering.lanes import Groups, LaneFactorCall, OverLanes, SelectPivot, SelectSwaps
 from derive.printers.cprinter import CPrinter
 from derive.targets.storage import Layout, Scalar
@@ -74,6 +74,20 @@ class LaneCPrinter(CPrinter):
                 f"{indent}    }}",
                 f"{indent}}}"]
 
+    def visit_Step(self, s: Step, indent: str) -> list[str]:
+        """One step of a loop unrolled for a fixed size: its index ranges are constants."""
+        size = f", kb = {s.size}" if s.size > 1 else ""
+        out = [self.comment(f"step {s.var} = {s.value}{size} (of {s.count}); loop invariant, {s.invariant}", indent),
+               self.comment(f"partition at this step: {s.partition}", indent)]
+        for t in s.body:
+            out += self.visit(t, indent)
+        return out
+
+    def n_text(self, r: Routine) -> str:
+        """n in a public routine: the argument's local copy, or the constant of a fixed-size kernel."""
+        rows = r.extents[0][1].split(",")[0]
+        return self.names.get(rows, rows)
+
     def visit_Call(self, s: Call, indent: str) -> list[str]:
         callee = self.kernel.routine(s.routine)
         args = ", ".join(self.names.get(p.name, p.name) for p in callee.params)
@@ -95,7 +109,7 @@ class LaneCPrinter(CPrinter):
                 size = rows if cols == "1" else f"{rows} * {cols}"
                 args.append(f"{p.name} + g * {size}")
             elif p.kind in ("pivots", "const_pivots"):
-                args.append(f"{p.name} + g * N")
+                args.append(f"{p.name} + g * {self.n_text(r)}")
             elif p.kind == "codes":
                 args.append(f"{p.name} + g")
             else:
@@ -132,13 +146,15 @@ class LaneCPrinter(CPrinter):
             out += [f"    const size_t {p.name.upper()} = (size_t){p.name};" for p in r.params
                     if p.kind in ("size", "count")]
             out.append("    size_t g;")
+            n = self.n_text(r)
             if any(p.kind == "codes" for p in r.params):
-                out += ["    if (N == 0) {",
-                        "        for (g = 0; g < COUNT; ++g) info[g] = 0;",
-                        "        return 0;",
-                        "    }"]
+                if not n.isdigit():
+                    out += [f"    if ({n} == 0) {{",
+                            "        for (g = 0; g < COUNT; ++g) info[g] = 0;",
+                            "        return 0;",
+                            "    }"]
             else:
-                out.append("    if (N == 0 || COUNT == 0) return 0;")
+                out.append(f"    if ({'COUNT == 0' if n.isdigit() else f'{n} == 0 || COUNT == 0'}) return 0;")
         else:
             loops = [s for s in r.body if isinstance(s, Loop)]
             if loops:
@@ -158,23 +174,25 @@ class LaneCPrinter(CPrinter):
 
     def lane_argument_checks(self, r: Routine) -> list[str]:
         """Negative codes name the bad argument by its 1-based position (as the header documents)."""
+        n = r.extents[0][1].split(",")[0]       # the argument n, or the fixed size
+        some = "count > 0" if n.isdigit() else "count > 0 && n > 0"
         out = []
         for pos, p in enumerate(r.params, start=1):
             if p.kind in ("count", "size"):
                 out.append(f"    if ({p.name} < 0) return -{pos};")
             elif p.kind in ("matrix", "const_matrix", "pivots"):
-                out.append(f"    if ({p.name} == NULL && count > 0 && n > 0) return -{pos};")
+                out.append(f"    if ({p.name} == NULL && {some}) return -{pos};")
             elif p.kind == "codes":
                 out.append(f"    if ({p.name} == NULL && count > 0) return -{pos};")
             elif p.kind == "const_pivots":
                 # pivots handed back in: the interchanges by selects look for row ipiv[k] among rows k..n-1,
                 # and getrf never records another, so anything else is refused before b is touched
-                out += [f"    if ({p.name} == NULL && count > 0 && n > 0) return -{pos};",
+                out += [f"    if ({p.name} == NULL && {some}) return -{pos};",
                         "    {",
                         "        int m, k;",
                         "        for (m = 0; m < count; ++m)",
-                        "            for (k = 0; k < n; ++k)",
-                        f"                if ({p.name}[(size_t)m * (size_t)n + (size_t)k] < k || "
-                        f"{p.name}[(size_t)m * (size_t)n + (size_t)k] >= n) return -{pos};",
+                        f"            for (k = 0; k < {n}; ++k)",
+                        f"                if ({p.name}[(size_t)m * (size_t){n} + (size_t)k] < k || "
+                        f"{p.name}[(size_t)m * (size_t){n} + (size_t)k] >= {n}) return -{pos};",
                         "    }"]
         return out

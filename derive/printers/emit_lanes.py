@@ -5,7 +5,7 @@ from __future__ import annotations
 from derive.engine import operation
 from derive.engine.invariants import make
 from derive.lowering.lanes import lower_lanes
-from derive.lowering.lower import invariant_text, lower_kernel
+from derive.lowering.lower import invariant_text
 from derive.options import KernelOptions
 from derive.printers import emit
 from derive.printers.clanes import LaneCPrinter
@@ -15,7 +15,9 @@ from derive.targets.storage import LAYOUTS, SCALARS
 
 
 def emit_lanes(o: KernelOptions) -> emit.Emitted:
-    scalar_kernel = lower_kernel(o)
+    # the single-matrix kernel, specialised for a fixed size if there is one (pivoting then by selects), is
+    # what the lanes lowering takes
+    scalar_kernel = emit.lower_options(o)
     kernel = lower_lanes(scalar_kernel, o)
     env = emit._environment()
     layout, scalar = LAYOUTS[o.layout], SCALARS[o.scalar]
@@ -26,7 +28,7 @@ def emit_lanes(o: KernelOptions) -> emit.Emitted:
                   digest=o.digest(), block=o.block, scalar=scalar, layout=layout, pivoted=True,
                   pivoting=o.pivoting, loop=o.loop, inner_loop=o.inner_loop, lower_loop=o.lower_loop,
                   upper_loop=o.upper_loop, invariant_doc=invariant_text(operation.LU, o.invariant, inv.label),
-                  lanes=o.lanes)
+                  lanes=o.lanes, size=o.size)
 
     cp = LaneCPrinter(o.name, layout, scalar, kernel)
     internal, public = [], []
@@ -35,8 +37,9 @@ def emit_lanes(o: KernelOptions) -> emit.Emitted:
         (public if r.role in ("factor", "solve") else internal).append(entry)
     helpers = [h for h in HELPER_ORDER if h in cp.needs]
     t = scalar.c_type
-    pack_params = {"pack": f"int count, int n, const {t} *restrict mats, {t} *restrict a",
-                   "unpack": f"int count, int n, const {t} *restrict a, {t} *restrict mats"}
+    n = "" if o.size else "int n, "
+    pack_params = {"pack": f"int count, {n}const {t} *restrict mats, {t} *restrict a",
+                   "unpack": f"int count, {n}const {t} *restrict a, {t} *restrict mats"}
     c_text = env.get_template("c/kernel_lanes.c.j2").render(
         helpers=helpers, internal=internal, public=public, at_index=layout.index, pack_params=pack_params,
         **common)

@@ -57,7 +57,7 @@ class LanePyPrinter(PyPrinter):
         prologue, known = [], set()
         for matrix, ext in r.extents:
             for d, e in enumerate(ext.split(",")):
-                if e not in known:
+                if e not in known and not e.isdigit():     # a fixed size is a constant, not a name
                     known.add(e)
                     prologue.append(f"{e} = {matrix}.shape[{d + 1}]")
         if r.on_zero == "record":
