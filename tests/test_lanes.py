@@ -327,3 +327,20 @@ def test_ir_dump_shows_the_lane_statements(tmp_path):
     for text in ("over 8 lanes: gemm", "per-lane pivot by selects", "per-lane interchanges by selects",
                  "for each group of 8 matrices"):
         assert text in out.stdout
+
+
+@pytest.mark.parametrize("cc", ["gcc", "clang"])
+def test_lanes_kernels_compile_clean(tmp_path, cc):
+    """Strict C99 with every warning an error, as the header promises, on both compilers (common practice)."""
+    import shutil
+    import subprocess
+    from derive.printers.emit import emit_kernel, write_atomically
+    if shutil.which(cc) is None:
+        pytest.skip(f"{cc} is not installed")
+    for o in (make_options("lr", "right-looking", pivoting="partial", lanes=8, scalar="float", layout="row-major"),
+              make_options("lc", "crout", block=3, inner="left-looking", pivoting="partial", lanes=4, size=6)):
+        write_atomically(tmp_path, list(emit_kernel(o).files))
+        res = subprocess.run([cc, "-std=c99", "-Wall", "-Wextra", "-Werror", "-pedantic", "-O2", "-c",
+                              str(tmp_path / f"{o.name}.c"), "-o", str(tmp_path / f"{o.name}.o")],
+                             capture_output=True, text=True)
+        assert res.returncode == 0, res.stderr
