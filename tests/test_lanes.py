@@ -344,3 +344,17 @@ def test_lanes_kernels_compile_clean(tmp_path, cc):
                               str(tmp_path / f"{o.name}.c"), "-o", str(tmp_path / f"{o.name}.o")],
                              capture_output=True, text=True)
         assert res.returncode == 0, res.stderr
+
+
+def test_verify_checks_lanes_kernels_as_their_own_abi_kind():
+    """`luforge verify` takes the lanes kind for a batched kernel (with and without size), including the
+    sanitized C driver; a kernel that passes here passes the per-matrix criteria above."""
+    import shutil
+    from derive.check.verify import Budget, kind_of, verify
+    opts = [make_options("vr", "left-looking", pivoting="partial", lanes=4),
+            make_options("vs", "right-looking", block=2, inner="crout", pivoting="partial", lanes=8, size=5,
+                         scalar="float")]
+    assert [kind_of(o).name for o in opts] == ["lanes", "lanes"]
+    rows = verify(opts, budget=Budget(per_size=1, sanitize=shutil.which("gcc") is not None))
+    assert all(r.passed for r in rows), [p for r in rows for p in r.problems]
+    assert rows[1].sizes == [5] * 4 and rows[0].matrices > 0
