@@ -80,7 +80,7 @@ def test_factor_and_solve_per_matrix(lanes, name, n, extra, seed):
     b = rng.standard_normal((count, n)).astype(ck.dtype)
     scode, x, sok = ck.solve(lu, ipiv, b)
     assert scode == 0 and sok
-    px = py.solve(pmats, pipiv, b.copy())
+    px = py.solve(pmats, b.copy(), pipiv)
     for m in range(count if n else 0):
         ref_lu, ref_piv, ref_info = getrf(mats[m])
         # pivots: the same rule as getrf (first entry of largest magnitude), matrix by matrix
@@ -208,7 +208,7 @@ def test_bad_arguments(lanes, name):
     with pytest.raises(TypeError):
         py.factor(np.zeros((2, 3, 3), np.int64))
     with pytest.raises(ValueError):
-        py.solve(np.zeros((2, 3, 3), ck.dtype), np.zeros((2, 3), int), np.zeros((2, 4), ck.dtype))
+        py.solve(np.zeros((2, 3, 3), ck.dtype), np.zeros((2, 4), ck.dtype), np.zeros((2, 3), int))
 
 
 @pytest.mark.parametrize("name", KERNELS[:7])
