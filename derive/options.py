@@ -12,6 +12,7 @@ from derive.engine.invariants import by_name, make
 SCALARS = ("double", "float")
 LAYOUTS = ("column-major", "row-major")
 PIVOTING = ("none", "partial")
+C_HELPERS = ("inline", "functions")     # inner operations as loops in the routine body, or as static functions
 MAX_BLOCK = 4096
 MAX_SIZE = 32       # fixed-size kernels: n from 1 to this (larger n gains little over the runtime-n kernels)
 MAX_LANES = 64       # matrices interleaved in one group (`lanes`); 1 means not batched
@@ -37,12 +38,16 @@ class KernelOptions:
     size: int | None = None         # n fixed at compile time (a fixed-size kernel), or None for n an argument
     constant_time: bool = True      # fixed-size pivoted kernels: pivot by selects (True) or by branches
     lanes: int = 1                  # W matrices interleaved element by element (batched kernel); 1: one matrix
+    c_helpers: str = "inline"       # how the C reads: inner operations inline as loops, or as helper functions
+    python: bool = True             # also write the NumPy twin NAME.py (False: C only, for a firmware tree)
 
     def __post_init__(self) -> None:
         if not is_c_identifier(self.name) or self.name in C_KEYWORDS:
             raise ValueError(f"kernel name {self.name!r} must be a C identifier that is not a C keyword")
         if self.scalar not in SCALARS or self.layout not in LAYOUTS or self.pivoting not in PIVOTING:
             raise ValueError("scalar, layout or pivoting out of range")
+        if self.c_helpers not in C_HELPERS or not isinstance(self.python, bool):
+            raise ValueError(f"c_helpers must be one of {C_HELPERS} and python a bool")
         if not 1 <= self.block <= MAX_BLOCK:
             raise ValueError(f"block must be from 1 to {MAX_BLOCK}")
         if self.size is not None and (isinstance(self.size, bool) or not 1 <= self.size <= MAX_SIZE):
@@ -78,10 +83,15 @@ class KernelOptions:
         d.pop("spec")
         if d["size"] is None:
             d.pop("size")   # runtime-n kernels keep the hash they had before fixed sizes existed
+        else:
+            d.pop("c_helpers")  # a fixed-size kernel has its own printer; the shaping does not apply
         if d["constant_time"]:
             d.pop("constant_time")
         if self.lanes == 1:
             d.pop("lanes")      # a single-matrix kernel keeps the settings (and hash) it had before lanes existed
+        if self.lanes != 1 and "c_helpers" in d:
+            d.pop("c_helpers")  # nor does it to a batched kernel
+        d.pop("python")     # which files are written, not what the code does
         d.update(loop=self.loop, inner_loop=self.inner_loop, lower_loop=self.lower_loop,
                  upper_loop=self.upper_loop)
         return d
@@ -103,11 +113,11 @@ DEFAULT_SOLVE_LOOP = {"column-major": "outer-product", "row-major": "inner-produ
 def make_options(name: str, loop: str, block: int = 1, inner: str | None = None, scalar: str = "double",
                  layout: str = "column-major", pivoting: str = "none", solve_loop: str | None = None,
                  spec: str = "", size: int | None = None, constant_time: bool = True,
-                 lanes: int = 1) -> KernelOptions:
+                 lanes: int = 1, c_helpers: str = "inline", python: bool = True) -> KernelOptions:
     """Convenience constructor from trade names (the spec reader validates and reports errors itself)."""
     inv = by_name(operation.LU, loop).words
     inn = by_name(operation.LU, inner or loop).words
     sl = solve_loop or DEFAULT_SOLVE_LOOP[layout]
     return KernelOptions(name, inv, block, inn if block > 1 else inv, scalar, layout, pivoting,
                          by_name(operation.LOWER_SOLVE, sl).words, by_name(operation.UPPER_SOLVE, sl).words, spec, size,
-                         constant_time, lanes)
+                         constant_time, lanes, c_helpers, python)

@@ -8,14 +8,15 @@ from pathlib import Path
 from derive.engine import operation
 from derive.engine.derivation import derive, pivoting_supported
 from derive.engine.invariants import InfeasibleInvariant, by_name, from_mapping
-from derive.options import (C_KEYWORDS, DEFAULT_SOLVE_LOOP, LAYOUTS, MAX_BLOCK, MAX_LANES, MAX_SIZE, PIVOTING,
-                            SCALARS, KernelOptions, is_c_identifier)
+from derive.options import (C_HELPERS, C_KEYWORDS, DEFAULT_SOLVE_LOOP, LAYOUTS, MAX_BLOCK, MAX_LANES, MAX_SIZE,
+                            PIVOTING, SCALARS, KernelOptions, is_c_identifier)
 
 KERNEL_KEYS = ("name", "loop", "invariant", "block", "inner", "scalar", "layout", "pivoting", "solve_loop", "size",
-               "constant_time", "lanes")
+               "constant_time", "lanes", "c_helpers", "python")
 DEFAULT_KEYS = tuple(k for k in KERNEL_KEYS if k != "name")
 TOP_KEYS = ("defaults", "kernel")
-BUILTIN_DEFAULTS = {"block": 1, "scalar": "double", "layout": "column-major", "pivoting": "none"}
+BUILTIN_DEFAULTS = {"block": 1, "scalar": "double", "layout": "column-major", "pivoting": "none",
+                    "c_helpers": "inline", "python": True}
 # symbols a kernel emits besides its own name; another kernel may not take one of them
 PUBLIC_SUFFIXES = ("_solve", "_pack", "_unpack")
 
@@ -128,6 +129,10 @@ def _kernel(entry: dict, defaults: dict, i: int, spec_name: str, where: str,
     scalar = choice("scalar", SCALARS)
     layout = choice("layout", LAYOUTS)
     pivoting = choice("pivoting", PIVOTING)
+    c_helpers = choice("c_helpers", C_HELPERS)
+    python = merged.get("python")
+    if not isinstance(python, bool):
+        bad("python", f"{python!r} is not allowed; allowed: true (also write NAME.py) or false (C only)")
     block = merged.get("block")
     if isinstance(block, bool) or not isinstance(block, int) or not 1 <= block <= MAX_BLOCK:
         bad("block", f"{block!r} is not allowed; allowed: an integer from 1 (unblocked) to {MAX_BLOCK}")
@@ -217,5 +222,5 @@ def _kernel(entry: dict, defaults: dict, i: int, spec_name: str, where: str,
         scalar=scalar, layout=layout, pivoting=pivoting,
         solve_lower=by_name(operation.LOWER_SOLVE, lower).words,
         solve_upper=by_name(operation.UPPER_SOLVE, upper).words, spec=spec_name, size=size,
-        constant_time=constant_time, lanes=lanes)
+        constant_time=constant_time, lanes=lanes, c_helpers=c_helpers, python=python)
 

@@ -6,18 +6,20 @@ from derive.lowering.ir import (Block, Call, FactorCall, Gemm, Lin, Loop, OneCol
                                Routine, Scale, Span, Step, Trsm)
 
 
-def show_lin(x: Lin, names: dict[str, str] | None = None) -> str:
+def show_lin(x: Lin, names: dict[str, str] | None = None, unsigned: bool = False) -> str:
+    """`unsigned`: constants get the U suffix (C index arithmetic in size_t mixes no signed operands)."""
     names = names or {}
-    pos = [names.get(n, n) if c == 1 else f"{c}*{names.get(n, n)}" for n, c in x.terms if c > 0]
-    neg = [names.get(n, n) if c == -1 else f"{-c}*{names.get(n, n)}" for n, c in x.terms if c < 0]
+    u = "U" if unsigned else ""
+    pos = [names.get(n, n) if c == 1 else f"{c}{u}*{names.get(n, n)}" for n, c in x.terms if c > 0]
+    neg = [names.get(n, n) if c == -1 else f"{-c}{u}*{names.get(n, n)}" for n, c in x.terms if c < 0]
     s = " + ".join(pos)
     if x.const > 0:
-        s = f"{s} + {x.const}" if s else str(x.const)
+        s = f"{s} + {x.const}{u}" if s else f"{x.const}{u}"
     for t in neg:
         s = f"{s} - {t}" if s else f"-{t}"
     if x.const < 0:
-        s = f"{s} - {-x.const}" if s else str(x.const)
-    return s or "0"
+        s = f"{s} - {-x.const}{u}" if s else str(x.const)
+    return s or f"0{u}"
 
 
 def show_span(s: Span) -> str:

@@ -5,8 +5,9 @@ from __future__ import annotations
 import re
 
 from derive.lowering.ir import (Block, Call, FactorCall, Gemm, Lin, Loop, Param, PivotCheck, PivotSearch, RowSwaps, Routine, Scale,
-                 Trsm)
+                 Span, Trsm)
 from derive.lowering.printing import show_lin
+from derive.printers.cloops import InlineLoops, joined_exchange
 from derive.targets.storage import Layout, Scalar
 
 # Helpers that are always emitted together with the one named (a helper calling another), and the order in
@@ -19,8 +20,12 @@ HELPER_ORDER = ("gemm", "gemv_n", "gemv_t", "dot", "ger", "scal", "trsm_llu", "t
 class CPrinter:
     """Prints routines of one kernel. `prefix` is the kernel name; every symbol it emits starts with it."""
 
-    def __init__(self, prefix: str, layout: Layout, scalar: Scalar):
+    def __init__(self, prefix: str, layout: Layout, scalar: Scalar, helpers: str = "functions"):
         self.prefix = prefix
+        # "inline": inner operations printed as loops in the routine's body (cloops.py); "functions": calls of
+        # static helpers. The IR is the same; only how it reads in C differs.
+        self.loops = InlineLoops(self) if helpers == "inline" else None
+        self.open_spans: list[Span] = []    # index ranges of the loops around the statement being printed
         self.layout = layout
         self.scalar = scalar
         self.needs: set[str] = set()
@@ -31,7 +36,7 @@ class CPrinter:
 
     # -- expressions -------------------------------------------------------------------------------------------
     def x(self, e: Lin) -> str:
-        return show_lin(e, self.names)
+        return show_lin(e, self.names, unsigned=True)
 
     def ld(self, matrix: str) -> str:
         assert self.routine is not None
@@ -56,11 +61,41 @@ class CPrinter:
         conds = list(dict.fromkeys(self.x(s) for s in sizes if not s.is_const() and s != Lin.of("kb")))
         if not conds:
             return call
-        return f"if ({' && '.join(f'{c} != 0' for c in conds)}) {call}"
+        ops = [c if c.replace("_", "").isalnum() else f"({c})" for c in conds]
+        tests = [f"{c} != 0U" if len(ops) == 1 else f"({c} != 0U)" for c in ops]
+        return f"if ({' && '.join(tests)}) {{ {call} }}"
 
     # -- statements --------------------------------------------------------------------------------------------
     def visit(self, node, indent: str) -> list[str]:
         return getattr(self, f"visit_{type(node).__name__}")(node, indent)
+
+    def statements(self, body, indent: str) -> list[str]:
+        out: list[str] = []
+        body = list(body)
+        i = 0
+        while i < len(body):
+            s = body[i]
+            if self.loops is not None and isinstance(s, PivotSearch):
+                # inline, the interchanges that follow the search join its own row exchange: one loop
+                cols, taken = joined_exchange(s, body[i + 1:])
+                out += [self.comment(f"partial pivoting on column {self.x(s.column.cols.lo)}: from {s.source}", indent)]
+                out += [self.comment(t.source, indent) for t in body[i + 1:i + 1 + taken]]
+                out += self.loops.pivot_search(s, cols, indent)
+                i += 1 + taken
+                continue
+            if self.loops is not None and isinstance(s, RowSwaps):
+                # interchanges of the same steps on several column ranges: one pass over the steps
+                same = [s]
+                while (i + len(same) < len(body) and isinstance(body[i + len(same)], RowSwaps)
+                       and body[i + len(same)].steps == s.steps and body[i + len(same)].matrix == s.matrix):
+                    same.append(body[i + len(same)])
+                out += [self.comment(f"row interchanges: {t.source}", indent) for t in same]
+                out += self.loops.row_swaps(same, indent)
+                i += len(same)
+                continue
+            out += self.visit(s, indent)
+            i += 1
+        return out
 
     def comment(self, text: str, indent: str) -> str:
         return f"{indent}/* {text.replace('*/', '* /')} */"
@@ -69,17 +104,23 @@ class CPrinter:
         k, e = s.var, self.x(s.extent)
         out = [self.comment(f"loop invariant, {s.invariant}", indent),
                self.comment(f"partition at step {k}: {s.partition}", indent)]
+        self.open_spans.append(Span(Lin(), s.extent))
         if s.step == 1:
-            out.append(f"{indent}for ({k} = 0; {k} < {e}; ++{k}) {{")
+            out.append(f"{indent}for ({k} = 0U; {k} < {e}; ++{k}) {{")
+            out += self.statements(s.body, indent + "    ")
         else:
-            out.append(f"{indent}for ({k} = 0; {k} < {e}; {k} += kb) {{")
-            out.append(f"{indent}    kb = ({e} - {k} < (size_t){s.step}) ? {e} - {k} : (size_t){s.step};")
-        for t in s.body:
-            out += self.visit(t, indent + "    ")
+            # a while loop: the step kb is set in the body, which a well-formed for loop may not do
+            out += [f"{indent}{k} = 0U;", f"{indent}while ({k} < {e}) {{",
+                    f"{indent}    kb = {e} - {k};", f"{indent}    if (kb > {s.step}U) {{ kb = {s.step}U; }}"]
+            out += self.statements(s.body, indent + "    ")
+            out.append(f"{indent}    {k} += kb;")
+        self.open_spans.pop()
         out.append(f"{indent}}}")
         return out
 
     def visit_Gemm(self, s: Gemm, indent: str) -> list[str]:
+        if self.loops is not None:
+            return [self.comment(f"{s.shape}: from {s.source}", indent)] + self.loops.gemm(s, indent)
         m, n, kk = s.c.rows.size, s.c.cols.size, s.a.cols.size
         fn = self.helper(s.shape)
         a, b, c = self.ptr(s.a), self.ptr(s.b), self.ptr(s.c)
@@ -96,6 +137,8 @@ class CPrinter:
         return [self.comment(f"trsm ({s.side}, {what}): from {s.source}", indent), indent + self.guarded([m, n], call)]
 
     def visit_Scale(self, s: Scale, indent: str) -> list[str]:
+        if self.loops is not None:
+            return [self.comment(f"scal by the pivot: from {s.source}", indent)] + self.loops.scale(s, indent)
         fn = self.helper("scal")
         m, n = s.b.rows.size, s.b.cols.size
         piv = self.at(s.pivot.matrix, s.pivot.rows.lo, s.pivot.cols.lo)
@@ -106,9 +149,11 @@ class CPrinter:
         piv = self.at(s.pivot.matrix, s.pivot.rows.lo, s.pivot.cols.lo)
         code = f"(int)({self.x(s.pivot.rows.lo)}) + 1"
         return [self.comment(f"exactly zero pivot: stop before dividing by it ({s.source})", indent),
-                f"{indent}if ({piv} == {self.scalar.c_zero}) return {code};"]
+                f"{indent}if ({piv} == {self.scalar.c_zero}) {{ return {code}; }}"]
 
     def visit_PivotSearch(self, s: PivotSearch, indent: str) -> list[str]:
+        if self.loops is not None:
+            return self.statements([s], indent)
         fn = self.helper("pivot")
         r0, r1, c0 = self.x(s.column.rows.lo), self.x(s.column.rows.hi), self.x(s.column.cols.lo)
         col = f"&{self.at(s.column.matrix, s.column.rows.lo, s.column.cols.lo)}"
@@ -122,17 +167,19 @@ class CPrinter:
         out = [self.comment(f"{'panel factor with partial pivoting' if s.pivoted else 'factor the diagonal block'}"
                             f" by the inner loop: from {s.source}", indent), f"{indent}{{"]
         if s.pivoted:
-            out += [f"{indent}    const int r = {fn}({m}, {n}, {self.ptr(s.block)}, ipiv + {r0});",
+            out += [f"{indent}    const int r = {fn}({m}, {n}, {self.ptr(s.block)}, &ipiv[{r0}]);",
                     f"{indent}    size_t i;",
-                    f"{indent}    for (i = {r0}; i < {r0} + {n}; ++i) ipiv[i] += (int)({r0});",
-                    f"{indent}    if (r != 0 && info == 0) info = r + (int)({r0});"]
+                    f"{indent}    for (i = {r0}; i < ({r0} + {n}); ++i) {{ ipiv[i] += (int)({r0}); }}",
+                    f"{indent}    if ((r != 0) && (info == 0)) {{ info = r + (int)({r0}); }}"]
         else:
             out += [f"{indent}    const int r = {fn}({m}, {n}, {self.ptr(s.block)});",
-                    f"{indent}    if (r != 0) return r + (int)({r0});"]
+                    f"{indent}    if (r != 0) {{ return r + (int)({r0}); }}"]
         out.append(f"{indent}}}")
         return out
 
     def visit_RowSwaps(self, s: RowSwaps, indent: str) -> list[str]:
+        if self.loops is not None:
+            return self.statements([s], indent)
         fn = self.helper("swaps")
         ncols = s.cols.size
         start = f"&{self.at(s.matrix, Lin(), s.cols.lo)}"
@@ -143,7 +190,8 @@ class CPrinter:
     def visit_Call(self, s: Call, indent: str) -> list[str]:
         args = ", ".join(self.names.get(p.name, p.name) for p in self.routine.params
                          if p.kind not in ("pivots", "const_pivots"))
-        return [self.comment(s.source, indent), f"{indent}{s.routine}({args});"]
+        # the callee's code is always 0 here (the solves cannot fail once the arguments are checked)
+        return [self.comment(s.source, indent), f"{indent}(void){s.routine}({args});"]
 
     # -- routines ----------------------------------------------------------------------------------------------
     def c_param(self, p: Param, public: bool) -> str:
@@ -164,8 +212,8 @@ class CPrinter:
         public = r.role in ("factor", "solve")
         self.names = {p.name: p.name.upper() for p in r.params if p.kind == "size"} if public else {}
         out: list[str] = []
+        # declarations first (the conversions are used only once the checks have passed), then the checks
         if public:
-            out += self.argument_checks(r)
             sizes = [p.name for p in r.params if p.kind == "size"]
             out += [f"    const size_t {n.upper()} = (size_t){n};" for n in sizes]
         loops = [s for s in r.body if isinstance(s, Loop)]
@@ -176,16 +224,19 @@ class CPrinter:
         if r.on_zero == "record":
             out.append("    int info = 0;")
         if public:
-            empty = " || ".join(f"{n.upper()} == 0" for n in self.extent_names(r))
+            out += self.argument_checks(r)
+            names = self.extent_names(r)
+            empty = " || ".join(f"({n.upper()} == 0U)" if len(names) > 1 else f"{n.upper()} == 0U" for n in names)
             if empty:
-                out.append(f"    if ({empty}) return 0;")
-        for s in r.body:
-            out += self.visit(s, "    ")
+                out.append(f"    if ({empty}) {{ return 0; }}")
+        out += self.statements(r.body, "    ")
         out.append("    return info;" if r.on_zero == "record" else "    return 0;")
         if not public:
             text = re.sub(r"/\*.*?\*/", "", "\n".join(out), flags=re.S)   # comments do not use a parameter
             unused = [p.name for p in r.params if not re.search(rf"\b{p.name}\b", text)]
-            out = [f"    (void){n};  /* not needed by this loop ordering */" for n in unused] + out
+            decls = [i for i, ln in enumerate(out) if re.match(r"    (const )?(size_t|int) \w+( = .*)?;$", ln)]
+            at = decls[-1] + 1 if decls else 0
+            out[at:at] = [f"    (void){n};  /* not needed by this loop ordering */" for n in unused]
         return out
 
     @staticmethod
@@ -206,22 +257,24 @@ class CPrinter:
             if p.kind == "size" and p.name in lds:
                 rows, cols = ext[lds[p.name]]
                 lead = rows if self.layout.leading == "rows" else cols
-                out.append(f"    if ({p.name} < 1 || {p.name} < {lead}) return -{pos};")
+                out.append(f"    if (({p.name} < 1) || ({p.name} < {lead})) {{ return -{pos}; }}")
             elif p.kind == "size":
-                out.append(f"    if ({p.name} < 0) return -{pos};")
+                out.append(f"    if ({p.name} < 0) {{ return -{pos}; }}")
             elif p.kind in ("matrix", "const_matrix"):
                 # an extent fixed at compile time (always >= 1) needs no test
-                cond = "".join(f" && {e} > 0" for e in dict.fromkeys(ext[p.name]) if not e.isdigit())
-                out.append(f"    if ({p.name} == NULL{cond}) return -{pos};")
+                cond = "".join(f" && ({e} > 0)" for e in dict.fromkeys(ext[p.name]) if not e.isdigit())
+                test = f"({p.name} == NULL){cond}" if cond else f"{p.name} == NULL"
+                out.append(f"    if ({test}) {{ return -{pos}; }}")
             else:
                 rows = ext[r.matrices[0][0]][0]
-                cond = "" if rows.isdigit() else f" && {rows} > 0"
-                out.append(f"    if ({p.name} == NULL{cond}) return -{pos};")
+                test = f"{p.name} == NULL" if rows.isdigit() else f"({p.name} == NULL) && ({rows} > 0)"
+                out.append(f"    if ({test}) {{ return -{pos}; }}")
                 if p.kind == "const_pivots":
                     # pivots handed back in: an entry out of range would make the solve write outside b
                     out += ["    {",
                             "        int i;",
-                            f"        for (i = 0; i < {rows}; ++i)",
-                            f"            if ({p.name}[i] < 0 || {p.name}[i] >= {rows}) return -{pos};",
+                            f"        for (i = 0; i < {rows}; ++i) {{",
+                            f"            if (({p.name}[i] < 0) || ({p.name}[i] >= {rows})) {{ return -{pos}; }}",
+                            "        }",
                             "    }"]
         return out

@@ -45,6 +45,8 @@ def banner_lines(o: KernelOptions, kernel: Kernel) -> list[str]:
     solve = o.lower_loop if o.lower_loop == o.upper_loop else f"{o.lower_loop}/{o.upper_loop}"
     settings = (f"settings: loop={o.loop} block={o.block} inner={o.inner_loop} scalar={o.scalar} layout={o.layout} "
                 f"pivoting={o.pivoting} solve_loop={solve}")
+    if o.size is None:
+        settings += f" c_helpers={o.c_helpers}"     # fixed-size kernels have their own shaping
     if o.size is not None:
         f, s = kernel_flops(kernel, o.size, 1)
         counts = (f"flops (multiplications, additions, divisions, counted from the loop IR): factor {f}, solve {s} "
@@ -93,7 +95,8 @@ def emit_kernel(o: KernelOptions, choices: str | None = None) -> Emitted:
                   upper_loop=o.upper_loop, invariant_doc=invariant_text(operation.LU, o.invariant, inv.label),
                   size=o.size, constant_time=o.constant_time)
 
-    cp = FixedCPrinter(o.name, layout, scalar, o.size) if o.size is not None else CPrinter(o.name, layout, scalar)
+    cp = (FixedCPrinter(o.name, layout, scalar, o.size) if o.size is not None
+          else CPrinter(o.name, layout, scalar, o.c_helpers))
     internal, public = [], []
     for r in kernel.routines:
         body = cp.body(r)

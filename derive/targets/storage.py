@@ -26,9 +26,9 @@ class Scalar:
 
 
 LAYOUTS = {
-    "column-major": Layout("column-major", "(i) + (j) * (ld)", "rows", "element (i, j) is a[i + j*lda]",
+    "column-major": Layout("column-major", "(i) + ((j) * (ld))", "rows", "element (i, j) is a[i + j*lda]",
                            "c/helpers_column_major.c.j2"),
-    "row-major": Layout("row-major", "(i) * (ld) + (j)", "cols", "element (i, j) is a[i*lda + j]",
+    "row-major": Layout("row-major", "((i) * (ld)) + (j)", "cols", "element (i, j) is a[i*lda + j]",
                         "c/helpers_row_major.c.j2"),
 }
 
