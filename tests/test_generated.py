@@ -72,13 +72,20 @@ def test_drop_in_shape(o):
         assert f"kernel {o.name}; do not edit" in text and f"settings hash: {o.digest()}" in text
         assert "flops" in text
     # the loop head carries the invariant; each update names the block equation it comes from
-    assert re.search(r"/\* loop invariant, [^\n]*\*/\n\s*/\* partition[^\n]*\*/\n\s*for \(k = 0;", c)
+    assert re.search(r"/\* loop invariant, [^\n]*\*/\n\s*/\* partition[^\n]*\*/\n\s*(for \(k = 0U;|k = 0U;\n\s*while)", c)
     lines = c[c.index("/* loop invariant"):].splitlines()    # the routines, after the helpers
-    call = re.compile(rf"^\s*(?:if \([^\n]*\) )?{o.name}_(gemm|gemv_n|gemv_t|dot|ger|trsm_\w+|scal)\(")
+    call = re.compile(rf"^\s*(?:if \([^\n]*\) {{ )?{o.name}_(gemm|gemv_n|gemv_t|dot|ger|trsm_\w+|scal)\(")
     calls = [i for i, ln in enumerate(lines) if call.match(ln)]
-    assert calls
+    if o.c_helpers == "functions":
+        assert calls
     for i in calls:
         assert re.search(r"/\* [^\n]*from [AB]\d+ = ", lines[i - 1]), f"update without its equation: {lines[i]}"
+    # inline, each update's loops follow the comment naming its block equation
+    updates = [i for i, ln in enumerate(lines) if re.match(r"\s*/\* (gemm|gemv_n|gemv_t|dot|ger|scal by the pivot|"
+                                                           r"trsm [^:]*): from [AB]\d+ = ", ln)]
+    assert updates
+    for i in updates:
+        assert not lines[i + 1].strip().startswith("/*"), f"equation without its update: {lines[i]}"
 
 
 def _driver(o) -> str:
