@@ -39,11 +39,11 @@ tune-check: $(STAMP)
 check-generated:
 	@tmp=$$(mktemp -d) && $(GENPY) -m derive.cli generate $(SPEC) -o $$tmp >/dev/null && \
 	  for f in $$tmp/*; do cmp -s $$f generated/$$(basename $$f) || { echo "differs: generated/$$(basename $$f)"; rm -rf $$tmp; exit 1; }; done && \
-	  for f in generated/*.c generated/*.h generated/*.py; do [ -e $$tmp/$$(basename $$f) ] || { echo "stale: $$f"; rm -rf $$tmp; exit 1; }; done; \
+	  for f in generated/*.c generated/*.h generated/*.py generated/*.cmake generated/*.mk; do [ -e $$tmp/$$(basename $$f) ] || { echo "stale: $$f"; rm -rf $$tmp; exit 1; }; done; \
 	  rm -rf $$tmp
 
 regenerate:
-	rm -f generated/*.c generated/*.h generated/*.py
+	rm -f generated/*.c generated/*.h generated/*.py generated/*.cmake generated/*.mk
 	$(GENPY) -m derive.cli generate $(SPEC)
 
 golden: $(STAMP)

@@ -14,6 +14,7 @@ from derive import __version__
 from derive.engine import operation
 from derive.lowering.counts import kernel_flops
 from derive.printers.cfixed import FixedCPrinter
+from derive.printers import firmware
 from derive.printers.cprinter import HELPER_ORDER, CPrinter
 from derive.lowering.fixed import lower_fixed
 from derive.engine.invariants import make
@@ -38,7 +39,11 @@ def _environment() -> jinja2.Environment:
 @dataclass(frozen=True, slots=True)
 class Emitted:
     options: KernelOptions
-    files: tuple[tuple[str, str], ...]     # (file name, text)
+    files: tuple[tuple[str, str], ...]     # (file name, text): every text verify may need
+
+    def written(self) -> list[tuple[str, str]]:
+        """What generate writes: the NumPy twin only if the spec asks for it (a firmware tree wants C only)."""
+        return [(n, t) for n, t in self.files if self.options.python or n != f"{self.options.name}.py"]
 
 
 def banner_lines(o: KernelOptions, kernel: Kernel) -> list[str]:
@@ -118,8 +123,9 @@ def emit_kernel(o: KernelOptions, choices: str | None = None) -> Emitted:
         + f", {o.loop} loop, block {o.block}, {o.scalar}",
         invariant_map=repr(inv.as_dict(operation.LU)), invariant_terms=_pyrepr(invariant_data(o.invariant)),
         **common)
+    selftest = firmware.selftest_text(o, env, _banner(lines))
     return Emitted(o, ((f"{o.name}.c", _tidy(c_text)), (f"{o.name}.h", _tidy(h_text)),
-                       (f"{o.name}.py", _tidy(py_text, blanks=2))))
+                       (f"{o.name}.py", _tidy(py_text, blanks=2)), (f"{o.name}_selftest.c", _tidy(selftest))))
 
 
 def _params(signature: str) -> str:

@@ -9,9 +9,10 @@ from derive.verbs.common import EXIT_FAILED, add_verb, fail
 
 
 def register(subparsers) -> None:
-    p = add_verb(subparsers, "generate", help="write NAME.c, NAME.h and NAME.py for every kernel of a spec",
-                 description="Render every kernel of SPEC and write its C99 source, its header and its NumPy twin "
-                             "next to the spec (or into -o DIR).",
+    p = add_verb(subparsers, "generate", help="write NAME.c, NAME.h, NAME_selftest.c (and NAME.py) for every kernel of a spec",
+                 description="Render every kernel of SPEC and write its C99 source, its header, its known-answer "
+                             "self-test and (unless the spec says python = false) its NumPy twin next to the spec "
+                             "(or into -o DIR), with SPECNAME.cmake and SPECNAME.mk listing the sources.",
                  examples=["luforge generate generated/kernels.toml",
                            "luforge generate pumps.toml -o firmware/lu"],
                  handler=run)
@@ -21,6 +22,7 @@ def register(subparsers) -> None:
 
 def run(args) -> int:
     from derive.printers.emit import emit_kernel, write_atomically
+    from derive.printers.firmware import fragments
     from derive.spec import SpecError, load
     spec = Path(args.spec)
     try:
@@ -32,7 +34,8 @@ def run(args) -> int:
         return fail(f"-o {out}: exists and is not a directory")
     files: list[tuple[str, str]] = []
     for o in options:
-        files += list(emit_kernel(o).files)   # everything is rendered before anything is written
+        files += emit_kernel(o).written()   # everything is rendered before anything is written
+    files += fragments(spec.stem, spec.name, options)   # the CMake and Make lists of the sources
     try:
         written = write_atomically(out, files)
     except OSError as e:
