@@ -1,6 +1,7 @@
 /* A plain textbook LU with partial (row) pivoting, written by hand as a firmware engineer would: one function,
    int indices, column-major float, the same ABI and return codes as a generated pivoted float kernel.
-   It is the yardstick for the size, stack and instruction figures of `bench/firmware.py`; not used by luforge. */
+   It is the yardstick for the size, stack and instruction figures of `bench/firmware.py`; not used by luforge.
+   Deliberately plain: no restrict, no unrolling, the loops a textbook prints. */
 #include <stddef.h>
 
 int textbook_lu(int n, float *a, int lda, int *ipiv)
@@ -46,4 +47,37 @@ int textbook_lu(int n, float *a, int lda, int *ipiv)
         }
     }
     return info;
+}
+
+/* Solve A X = B with the factors above: the interchanges, then forward and backward substitution. */
+int textbook_lu_solve(int n, int nrhs, const float *lu, int lda, const int *ipiv, float *b, int ldb)
+{
+    int i, j, k;
+    if (n < 0) return -1;
+    if (nrhs < 0) return -2;
+    if (lu == NULL && n > 0) return -3;
+    if (lda < 1 || lda < n) return -4;
+    if (ipiv == NULL && n > 0) return -5;
+    for (i = 0; i < n; ++i)
+        if (ipiv[i] < 0 || ipiv[i] >= n) return -5;
+    if (b == NULL && n > 0 && nrhs > 0) return -6;
+    if (ldb < 1 || ldb < n) return -7;
+    for (j = 0; j < nrhs; ++j) {
+        float *x = b + j * ldb;
+        for (k = 0; k < n; ++k) {
+            const int p = ipiv[k];
+            if (p != k) {
+                const float t = x[k];
+                x[k] = x[p];
+                x[p] = t;
+            }
+        }
+        for (k = 0; k < n; ++k)
+            for (i = k + 1; i < n; ++i) x[i] -= lu[i + k * lda] * x[k];
+        for (k = n - 1; k >= 0; --k) {
+            x[k] /= lu[k + k * lda];
+            for (i = 0; i < k; ++i) x[i] -= lu[i + k * lda] * x[k];
+        }
+    }
+    return 0;
 }
