@@ -7,7 +7,7 @@ SPEC   := generated/kernels.toml
 # regeneration checks need only jinja2: use the venv when it exists, else the system Python
 GENPY  := $(shell [ -x $(BIN)/python ] && echo $(BIN)/python || echo $(PYTHON))
 
-.PHONY: tune-check venv demo test target-check check-generated regenerate golden bench bench-small clean
+.PHONY: tune-check venv demo test target-check check-generated regenerate golden bench bench-small firmware-check clean
 
 $(STAMP): pyproject.toml setup.py
 	$(PYTHON) -m venv $(VENV)
@@ -48,6 +48,10 @@ regenerate:
 
 golden: $(STAMP)
 	LUFORGE_UPDATE_GOLDEN=1 $(BIN)/python -m pytest -q tests/test_golden.py
+
+# MISRA C:2012 (cppcheck's addon) over every emitted file of the catalogue; `make test` checks a sample
+firmware-check: $(STAMP)
+	LUFORGE_MISRA_ALL=1 $(BIN)/python -m pytest -q tests/test_firmware.py -k misra
 
 # every bench file in one go; each also has its own target (bench-small: small n against Eigen and LAPACK)
 bench: $(STAMP)
