@@ -8,6 +8,7 @@ target table's counter (derive/check/report.py) for n = 4, 8, 16. Run: .venv/bin
 from __future__ import annotations
 
 import argparse
+import dataclasses
 import re
 import shutil
 import subprocess
@@ -35,7 +36,9 @@ def kernels() -> list[tuple[str, str, str, object, str]]:
         o = make_options(f"lean_{h}", "right-looking", 1, scalar="float", pivoting="partial", c_helpers=h)
         files = dict(emit_kernel(o).files)
         out.append((f"generated, c_helpers = \"{h}\"", o.name, files[f"{o.name}.c"], o, files[f"{o.name}.h"]))
-    out.append(("textbook LU by hand (bench/reference)", "textbook_lu", TEXTBOOK.read_text(), None, ""))
+    tb = textbook_options()
+    out.append(("textbook LU by hand (bench/reference)", "textbook_lu", TEXTBOOK.read_text(), None,
+                dict(emit_kernel(tb).files)["textbook_lu.h"]))
     return out
 
 
@@ -86,17 +89,34 @@ def worst_stack(work: Path, obj: Path, root: str) -> int:
     return depth(root, frozenset())
 
 
-def instructions(label_opts, orders) -> dict[int, int] | None:
-    """Instructions of the factor on the emulated Cortex-M4F, from the target table's counter."""
+def textbook_options():
+    return make_options("textbook_lu", "right-looking", 1, scalar="float", pivoting="partial")
+
+
+def target_report(o, c_text: str | None, orders):
+    """The target table's report for one kernel on cortex-m4f (bytes, stack, instructions counted by its QEMU
+    plugin); with `c_text`, that C replaces the generated source (the textbook kernel has the same ABI and is
+    checked by the same on-target judge)."""
     try:
-        from derive.check import report
+        from derive.check import ondevice, report
         from derive.targets.table import get
     except ImportError:
         return None
-    o = label_opts
-    t = get("cortex-m4f")
-    entry = report.report_kernel(o, t, orders)
-    return {n: entry.instructions[n][0] for n in orders}
+    real = report.emit_kernel
+    if c_text is not None:
+        def emit(opts):
+            e = real(opts)
+            if opts.name != o.name:
+                return e
+            return dataclasses.replace(e, files=tuple((n, c_text if n == f"{o.name}.c" else t) for n, t in e.files))
+        report.emit_kernel = ondevice.emit_kernel = emit
+    try:
+        entry = report.report_kernel(o, get("cortex-m4f"), orders)
+    finally:
+        report.emit_kernel = ondevice.emit_kernel = real
+    if entry.problems:
+        raise RuntimeError(f"{o.name} failed on the target: {entry.problems}")
+    return entry
 
 
 def main() -> int:
@@ -114,18 +134,24 @@ def main() -> int:
         work = Path(tmp)
         for label, sym, text, o, header in kernels():
             obj = compile_object(work, sym, text, header)
-            factor = linked_text(work, obj, [sym])
-            both = linked_text(work, obj, [sym, f"{sym}_solve"])
-            stack = worst_stack(work, obj, sym)
-            counts = instructions(o, orders) if o is not None else None
-            rows.append((label, factor, both, stack, counts))
-    head = "| kernel | factor bytes | factor+solve bytes | worst stack (factor) | " + \
-        " | ".join(f"instructions, n = {n}" for n in orders) + " |"
-    print(head)
+            mine = (linked_text(work, obj, [sym]), linked_text(work, obj, [sym, f"{sym}_solve"]),
+                    worst_stack(work, obj, sym))
+            entry = target_report(o or textbook_options(), None if o else text, orders)
+            rows.append((label, mine, entry))
+    print("| kernel | factor bytes | factor+solve bytes | worst stack (factor) | "
+          + " | ".join(f"instructions, n = {n}" for n in orders) + " |")
     print("|" + "---|" * (4 + len(orders)))
-    for label, factor, both, stack, counts in rows:
-        cells = [f"{counts[n]:,}" if counts else "(counter not available)" for n in orders]
+    for label, (factor, both, stack), e in rows:
+        if e is None:
+            cells = ["(target counter not available)"] * len(orders)
+        else:
+            cells = [f"{e.instructions[n][0]:,}" for n in orders]
+            factor, both, stack = e.factor.text, e.factor_solve.text, e.factor_stack.worst
         print(f"| {label} | {factor} | {both} | {stack} | " + " | ".join(cells) + " |")
+    print("\nindependent build of the same C (arm-none-eabi-size on a --gc-sections link, call graph from the "
+          "relocations over -fstack-usage frames):")
+    for label, (factor, both, stack), _ in rows:
+        print(f"  {label}: factor {factor} bytes, factor+solve {both} bytes, stack {stack} bytes")
     return 0
 
 
