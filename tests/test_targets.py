@@ -45,6 +45,7 @@ def host():
 def test_row_runs_kernels_bit_identical_to_host(row, host):
     t = get(row)
     _usable(t)
+    painted = []
     for k, o in enumerate(KERNELS):
         r = ondevice.check_on(o, t, np.random.default_rng([7, k]), per_size=1, host=host[o.name])
         # thresholds: LAPACK TESTING/dtest.in (ratios < 30) and Higham 2002, Thm 9.3 (componentwise <= 1),
@@ -55,7 +56,11 @@ def test_row_runs_kernels_bit_identical_to_host(row, host):
             assert r.sizes == [o.size]
         else:
             assert r.matrices >= 10 and max(r.sizes) == min(t.max_n, 48)
-        assert 0 < r.max_factor_stack <= t.paint_bytes
+        # an unblocked factor with its loops inline can be a leaf that keeps everything in registers (0 bytes
+        # on AArch64); the painting is shown to work by the kernels that do use stack
+        assert 0 <= r.max_factor_stack <= t.paint_bytes
+        painted.append(r.max_factor_stack + r.max_solve_stack)
+    assert not painted or max(painted) > 0, f"{row}: the painted stack showed no use by any kernel"
 
 
 def test_judge_catches_a_changed_bit_a_canary_and_a_wrong_code(host):
