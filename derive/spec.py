@@ -18,7 +18,7 @@ TOP_KEYS = ("defaults", "kernel")
 BUILTIN_DEFAULTS = {"block": 1, "scalar": "double", "layout": "column-major", "pivoting": "none",
                     "c_helpers": "inline", "python": True}
 # symbols a kernel emits besides its own name; another kernel may not take one of them
-PUBLIC_SUFFIXES = ("_solve", "_pack", "_unpack")
+PUBLIC_SUFFIXES = ("_solve", "_pack", "_unpack", "_selftest")   # NAME_selftest is also a file
 
 
 class SpecError(Exception):

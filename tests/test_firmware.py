@@ -141,6 +141,13 @@ def test_a_bad_python_key_is_one_clear_error():
     assert "key 'c_helpers'" in str(e.value) and "inline, functions" in str(e.value)
 
 
+def test_a_kernel_may_not_take_another_kernels_selftest_name():
+    from derive.spec import SpecError
+    with pytest.raises(SpecError) as e:
+        parse('[[kernel]]\nname = "k"\nloop = "crout"\n\n[[kernel]]\nname = "k_selftest"\nloop = "crout"\n', "x.toml")
+    assert "clashes with the _selftest function of kernel 'k'" in str(e.value)
+
+
 def _main_calling_selftests() -> str:
     return ("int pump_lu_selftest(void);\nint pump_lu_blk_selftest(void);\n"
             "int main(void) { return pump_lu_selftest() + 100 * pump_lu_blk_selftest(); }\n")
