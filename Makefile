@@ -56,7 +56,7 @@ firmware-check: $(STAMP)
 # every bench file in one go; each also has its own target (bench-small: small n against Eigen and LAPACK)
 bench: $(STAMP)
 	$(BIN)/python bench/bench.py
-	@for f in bench/small.py bench/batched.py bench/large.py; do [ ! -e $$f ] || $(BIN)/python $$f || exit 1; done
+	@for f in bench/small.py bench/batched.py bench/large.py bench/firmware.py; do [ ! -e $$f ] || $(BIN)/python $$f || exit 1; done
 
 bench-small: $(STAMP)
 	$(BIN)/python bench/small.py
