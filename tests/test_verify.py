@@ -78,8 +78,8 @@ def test_nan_solutions_fail():
 
 
 def test_a_kernel_whose_solutions_are_nan_fails(shipped):
-    plant(shipped.parent / "pump_lu.c", "    pump_lu_upper(N, NRHS, lu, LDA, b, LDB);\n    return 0;",
-          "    pump_lu_upper(N, NRHS, lu, LDA, b, LDB);\n    { size_t q; for (q = 0; q < N; ++q) "
+    plant(shipped.parent / "pump_lu.c", "    (void)pump_lu_upper(N, NRHS, lu, LDA, b, LDB);\n    return 0;",
+          "    (void)pump_lu_upper(N, NRHS, lu, LDA, b, LDB);\n    { size_t q; for (q = 0; q < N; ++q) "
           "PUMP_LU_AT(b, LDB, q, 0) = 0.0 / 0.0; }\n    return 0;")
     row = run_verify(shipped, "pump_lu")
     assert not row.passed and any("NaN" in p for p in row.problems), row.problems
@@ -90,10 +90,10 @@ def test_a_bug_in_the_second_block_iteration_fails(shipped, name, kernel_k):
     """Skip the GEMM update of the trailing blocks from the second block step on: the first block is right."""
     c = shipped.parent / f"{name}.c"
     text = c.read_text()
-    needle = f"for ({kernel_k} = 0; {kernel_k} < N; {kernel_k} += kb) {{\n"
-    assert needle in text
     b = 64 if name == "pump_b64" else 100
-    plant(c, needle, needle + f"        if ({kernel_k} == {b}) {{ {name.upper()}_AT(a, LDA, {b}, {b}) += 1; }}\n")
+    needle = f"    while ({kernel_k} < N) {{\n        kb = N - {kernel_k};\n        if (kb > {b}U) {{ kb = {b}U; }}\n"
+    assert needle in text
+    plant(c, needle, needle + f"        if ({kernel_k} == {b}U) {{ {name.upper()}_AT(a, LDA, {b}U, {b}U) += 1; }}\n")
     row = run_verify(shipped, name)
     assert not row.passed, "a defect only the second block iteration meets passed"
     assert any(f"n={2 * b}" in p or f"n={2 * b + 1}" in p or f"n={b + 1}" in p for p in row.problems)
@@ -101,8 +101,8 @@ def test_a_bug_in_the_second_block_iteration_fails(shipped, name, kernel_k):
 
 def test_wrong_code_for_a_zero_column_fails(shipped):
     """LAPACK dchkge: types 5-7 zero columns and getrf must return IZERO; here the code loses the block offset."""
-    plant(shipped.parent / "pump_lu.c", "if (r != 0 && info == 0) info = r + (int)(k);",
-          "if (r != 0 && info == 0) info = r;")
+    plant(shipped.parent / "pump_lu.c", "if ((r != 0) && (info == 0)) { info = r + (int)(k); }",
+          "if ((r != 0) && (info == 0)) { info = r; }")
     row = run_verify(shipped, "pump_lu")
     assert not row.passed and any("expected" in p for p in row.problems), row.problems
 
@@ -119,8 +119,8 @@ def test_a_write_past_the_matrix_trips_a_canary(shipped):
 def test_sanitize_catches_an_out_of_bounds_write(shipped, monkeypatch):
     monkeypatch.setenv("CC", "gcc")
     # one element past the end of a buffer of exactly lda*n elements: no canary in the sanitizer's driver
-    plant(shipped.parent / "pump_lu.c", "    if (N == 0) return 0;\n    /* loop invariant",
-          "    if (N == 0) return 0;\n    if (N > 8) a[LDA * N] = 0;\n    /* loop invariant")
+    plant(shipped.parent / "pump_lu.c", "    if (N == 0U) { return 0; }\n    /* loop invariant",
+          "    if (N == 0U) { return 0; }\n    if (N > 8U) { a[LDA * N] = 0; }\n    /* loop invariant")
     row = run_verify(shipped, "pump_lu", sanitize=True)
     assert any("--sanitize" in p and "AddressSanitizer" in p for p in row.problems), row.problems
 
