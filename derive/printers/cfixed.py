@@ -86,6 +86,7 @@ class FixedCPrinter(CPrinter):
         return [e for e in CPrinter.extent_names(r) if _int(e) is None]
 
     loop_vars_in_for = True
+    unsigned_constants = False  # the views compare printed sizes with "1"
 
     # -- structure ---------------------------------------------------------------------------------------------
     def visit_Loop(self, s, indent: str) -> list[str]:
@@ -209,7 +210,7 @@ class FixedCPrinter(CPrinter):
         out = super().visit_FactorCall(s, indent)
         if s.pivoted:     # the panel's code taken without a branch, like the pivot search's own
             r0 = self.x(s.block.rows.lo)
-            out = [line.replace(f"if (r != 0 && info == 0) info = r + (int)({r0});",
+            out = [line.replace(f"if ((r != 0) && (info == 0)) {{ info = r + (int)({r0}); }}",
                                 f"info += ((r != 0) & (info == 0)) * (r + (int)({r0}));") for line in out]
         return out
 

@@ -32,11 +32,12 @@ class CPrinter:
         self.names: dict[str, str] = {}
         self.routine: Routine | None = None
 
+    unsigned_constants = True   # index constants printed with U: size_t arithmetic mixes no signed operand
     loop_vars_in_for = False    # True: a printer declares each loop's variables in its own for statement
 
     # -- expressions -------------------------------------------------------------------------------------------
     def x(self, e: Lin) -> str:
-        return show_lin(e, self.names, unsigned=True)
+        return show_lin(e, self.names, unsigned=self.unsigned_constants)
 
     def ld(self, matrix: str) -> str:
         assert self.routine is not None
