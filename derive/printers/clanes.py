@@ -29,7 +29,7 @@ class LaneCPrinter(CPrinter):
     def visit_OverLanes(self, s: OverLanes, indent: str) -> list[str]:
         lines = self.visit(s.stmt, indent)
         # the single-matrix statement ends in one helper call; its lane twin takes the lane count last
-        lines[-1] = re.sub(r"\);$", f", {self.lanes_of()});", lines[-1])
+        lines[-1] = re.sub(r"\);( \})?$", lambda m: f", {self.lanes_of()});" + (m.group(1) or ""), lines[-1])
         return lines
 
     def visit_Scale(self, s, indent: str) -> list[str]:

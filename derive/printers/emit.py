@@ -123,9 +123,10 @@ def emit_kernel(o: KernelOptions, choices: str | None = None) -> Emitted:
         + f", {o.loop} loop, block {o.block}, {o.scalar}",
         invariant_map=repr(inv.as_dict(operation.LU)), invariant_terms=_pyrepr(invariant_data(o.invariant)),
         **common)
-    selftest = firmware.selftest_text(o, env, _banner(lines))
-    return Emitted(o, ((f"{o.name}.c", _tidy(c_text)), (f"{o.name}.h", _tidy(h_text)),
-                       (f"{o.name}.py", _tidy(py_text, blanks=2)), (f"{o.name}_selftest.c", _tidy(selftest))))
+    files = ((f"{o.name}.c", _tidy(c_text)), (f"{o.name}.h", _tidy(h_text)), (f"{o.name}.py", _tidy(py_text, blanks=2)))
+    if firmware.has_selftest(o):
+        files += ((f"{o.name}_selftest.c", _tidy(firmware.selftest_text(o, env, _banner(lines)))),)
+    return Emitted(o, files)
 
 
 def _params(signature: str) -> str:
