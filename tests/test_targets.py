@@ -97,15 +97,22 @@ def test_judge_catches_a_changed_bit_a_canary_and_a_wrong_code(host):
     assert any("returned 3" in p for p in tampered(code).problems)
 
 
-def test_zero_pivot_cases_return_the_exact_code():
+def test_reference_matrices_return_the_expected_codes_and_exact_factors(host):
     t = get("host")
-    for o in KERNELS[:2]:
+    for o, judges in zip(KERNELS[:2], ({"random", "exact", "lapack"}, {"random", "exact", "code"})):
         cases = ondevice.choose_cases(o, t, np.random.default_rng(5), per_size=1)
+        assert {c.judge for c in cases} == judges
+        # LAPACK TESTING/LIN/dchkge.f: types 5, 6, 7 zero columns IZERO = 1, N, N/2+1 (7: IZERO..N)
         zero = [c for c in cases if c.expect_info]
         assert zero and all(c.expect_info <= c.n for c in zero)
         results = ondevice.parse(o, cross.run(ondevice.image_for(o, t, cases)).stdout, len(cases))
         for c, r in zip(cases, results):
             assert r.info == (c.expect_info or 0)
+        assert ondevice.judge(o, t, cases, results, host[o.name]).passed
+        k = next(i for i, c in enumerate(cases) if c.judge == "exact")
+        bad = [dataclasses.replace(r, a_buf=r.a_buf.copy()) for r in results]
+        bad[k].a_buf[int(cases[k].a_place.index()[1, 0])] += 1
+        assert any("exactly known" in p for p in ondevice.judge(o, t, cases, bad).problems)
 
 
 def test_missing_toolchain_names_the_package():

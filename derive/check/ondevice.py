@@ -10,7 +10,9 @@ from derive import __version__
 from derive.check import cross
 from derive.check.accuracy import column_dominant, componentwise_ratio, factor_ratio, solve_ratio
 from derive.check.harness import GUARD, Placed, place
+from derive.check.matrices import exact_factors, lapack_ge_matrix
 from derive.check.verify import THRESHOLD, sizes_for
+from derive.check.verify import _zero_columns as zero_columns
 from derive.options import KernelOptions
 from derive.printers.emit import emit_kernel
 from derive.targets.storage import LAYOUTS, SCALARS
@@ -72,12 +74,16 @@ def _case(o: KernelOptions, a: np.ndarray, rng, lda: int, expect: int | None, ju
     return Case(n, a, pa, b, pb, expect, judge, exact)
 
 
-ZERO_PIVOT_ORDERS = (1, 5, 16)
+# LAPACK TESTING/dtest.in runs N = 0, 1, 2, 3, 5, 10, 50; on a target those up to 10 (its RAM is small).
+LAPACK_ORDERS = (1, 2, 3, 5, 10)
+EXACT_ORDERS = (4, 9, 16)
 
 
 def choose_cases(o: KernelOptions, t: Target, rng, per_size: int = 2, orders=None) -> list[Case]:
-    """Matrices for the sizes that fit the row: random (pivoted) or column-dominant (unpivoted) ones with
-    leading dimensions beyond n, and exact zero pivots. With `orders`: one random matrix per order (counting)."""
+    """The matrices host verify uses, for the sizes that fit the row: random (pivoted) or column-dominant
+    (unpivoted) ones with leading dimensions beyond n, matrices with exactly known factors, and LAPACK's GE
+    types with their expected codes (zero columns: exact zero pivots). With `orders`: one random matrix per
+    order (for counting)."""
     dtype = np.dtype(SCALARS[o.scalar].numpy)
     abi = abi_of(o)
 
@@ -92,15 +98,21 @@ def choose_cases(o: KernelOptions, t: Target, rng, per_size: int = 2, orders=Non
             cases.append(_case(o, a, rng, max(1, n) + int(rng.integers(0, 4)), None))
     if orders is not None:
         return cases
-    for n in fits(abi.orders or ZERO_PIVOT_ORDERS):
-        a = (rng.standard_normal((n, n)) if pivoted else column_dominant(n, np.float64, rng)).astype(dtype)
-        if pivoted:
-            k = n // 2
-            a[:, k] = 0     # a zero column stays exactly zero under elimination: the first zero pivot is at k
-        else:
-            k = 0
-            a[0, 0] = 0     # exact: a nonzero leading entry would have to be the Schur value, which rounds
-        cases.append(_case(o, a, rng, max(1, n), k + 1, "lapack" if pivoted else "code"))
+    for n in fits(abi.orders or EXACT_ORDERS):
+        a, lu, ipiv = exact_factors(n, dtype, rng, pivoted)
+        cases.append(_case(o, a, rng, max(1, n) + 1, None, "exact", (lu, ipiv)))
+    for n in fits(abi.orders or LAPACK_ORDERS):
+        for imat in range(1, 12):
+            if 5 <= imat <= 7 and n < imat - 4:
+                continue    # dchkge skips these types when N < IMAT-4
+            if pivoted:
+                a, expected = lapack_ge_matrix(imat, n, dtype, rng)
+            elif imat in (5, 6, 7):
+                # host verify's zero-column placement (dchkge's IZERO) on a dominant matrix: exact zero pivot
+                a, expected = zero_columns(column_dominant(n, dtype, rng), imat)
+            else:
+                continue    # the other GE types need pivoting; an unpivoted kernel promises nothing on them
+            cases.append(_case(o, a, rng, max(1, n), expected, "lapack" if pivoted else "code"))
     return cases
 
 
