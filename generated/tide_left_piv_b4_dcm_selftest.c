@@ -7,7 +7,8 @@
 /*
  * Known-answer self-test of tide_left_piv_b4_dcm, to build into an on-target test suite: tide_left_piv_b4_dcm_selftest() returns 0
  * when every check passes, otherwise the number of the first failing check. No stdio, no libm, no allocator;
- * about 140 doubles of stack.
+ * about 140 doubles of stack. gcc may turn the copies of the test matrices into calls of
+ * memcpy, which it requires every freestanding C environment to provide (newlib, picolibc or your own).
  *
  * The 6 x 6 matrices factor exactly in binary32 and binary64 (dyadic multipliers below 1 in
  * magnitude, power-of-two pivots), so a correct factorization returns these factors bit for bit in any loop
