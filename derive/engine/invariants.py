@@ -120,14 +120,15 @@ def use_label(op: Operation, use: BlockUse, positions: tuple[int, ...]) -> str:
 def held_label(op: Operation, target: tuple[int, ...], positions: tuple[int, ...]) -> str:
     eq = op.equation_for(target)
     d = display_index(op, target, positions)
-    return "\\".join(f"{s}{d}" for s in eq.holds.split("\\"))
+    # packed factors show as LU11: L11 below the diagonal, U11 on and above it (the README defines it once)
+    return "".join(eq.holds.split(",")) + d
 
 
 def finish_product(op: Operation, target: tuple[int, ...], positions: tuple[int, ...]) -> str:
     eq = op.equation_for(target)
     d = display_index(op, target, positions)
     if eq.finish.kind == "factor":
-        return " ".join(f"{s}{d}" for s in eq.holds.split("\\"))
+        return " ".join(f"{s}{d}" for s in eq.holds.split(","))
     tri = use_label(op, bind(eq.finish.tri, target, None), positions)
     mine = f"{eq.holds}{d}"
     return f"{tri} {mine}" if eq.finish.side == "left" else f"{mine} {tri}"

@@ -52,7 +52,7 @@ class Equation:
     left: Ref
     right: Ref
     finish: Finish
-    holds: str                  # e.g. "L\\U" (both factors packed), "U", "L", "X"
+    holds: str                  # e.g. "L,U" (both factors packed in the block, shown LU11), "U", "L", "X"
 
     def __post_init__(self) -> None:
         if self.where not in ("", "i=j", "i<j", "i>j"):
@@ -169,7 +169,7 @@ LU = Operation(
     ),
     equations=(
         # A_ii = sum_k L_ik U_ki + L_ii U_ii
-        Equation("i=j", _PRODUCT_L, _PRODUCT_U, Finish("factor"), holds="L\\U"),
+        Equation("i=j", _PRODUCT_L, _PRODUCT_U, Finish("factor"), holds="L,U"),
         # A_ij = sum_k L_ik U_kj + L_ii U_ij   (i < j): U_ij by a solve with the unit-lower L_ii
         Equation("i<j", _PRODUCT_L, _PRODUCT_U, Finish("trsm", "left", Ref("A", "L", ("i", "i"))), holds="U"),
         # A_ij = sum_k L_ik U_kj + L_ij U_jj   (i > j): L_ij by a solve with the upper U_jj from the right

@@ -48,7 +48,7 @@ def _update_line(d: Derivation, u) -> str:
         return f"{t} := {tri}^-1 {t}" if u.side == "left" else f"{t} := {t} {tri}^-1"
     if u.kind == "factor":
         t = lab(u.targets[0])
-        return f"{t} := L\\U of {t} (inner unblocked loop)"
+        return f"{t} := LU{t[1:]} of {t}, packed (inner unblocked loop)"
     if u.kind == "panel":
         ts = "; ".join(lab(t) for t in u.targets)
         return f"[{ts}] := P [{ts}] factored: choose each pivot in the column, interchange, divide below"
