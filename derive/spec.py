@@ -2,6 +2,7 @@
 KernelOptions. All problems are collected first; nothing is generated from a spec with any of them."""
 from __future__ import annotations
 
+import sys
 import tomllib
 from pathlib import Path
 
@@ -33,25 +34,47 @@ def _loops(op) -> list[str]:
     return [n for _, n in op.names]
 
 
+SHOW_AT_MOST = 80     # characters of a user's value echoed back in a message
+
+
+def _show(value) -> str:
+    """repr() of a value from the spec, cut so that a 5 MB string is not echoed whole."""
+    text = repr(value)
+    return text if len(text) <= SHOW_AT_MOST else text[: SHOW_AT_MOST - 15] + f"... ({len(text)} chars)"
+
+
 def load(path: str | Path) -> list[KernelOptions]:
     path = Path(path)
     try:
-        text = path.read_text(encoding="utf-8")
+        data = path.read_bytes()
+    except IsADirectoryError:
+        raise SpecError([f"{path}: is a directory; give the spec's TOML file"]) from None
     except OSError as e:
-        raise SpecError([f"{path}: cannot read the spec: {e.strerror}"]) from None
+        raise SpecError([f"{path}: cannot read the spec: {e.strerror or e}"]) from None
+    if data.startswith((b"\xff\xfe", b"\xfe\xff")) or b"\x00" in data[:4096]:
+        raise SpecError([f"{path}: the spec must be UTF-8 (this looks like UTF-16 or binary); save it as UTF-8"])
+    try:
+        text = data.decode("utf-8")
+    except UnicodeDecodeError as e:
+        line = data[:e.start].count(b"\n") + 1
+        raise SpecError([f"{path}: the spec must be UTF-8 (byte {e.start} on line {line} is not); save it as "
+                         f"UTF-8"]) from None
     return parse(text, path.name, str(path))
 
 
 def parse(text: str, spec_name: str, where: str | None = None) -> list[KernelOptions]:
     where = where or spec_name
+    text = text.removeprefix("\ufeff")      # a UTF-8 byte order mark, as some editors write
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as e:
-        raise SpecError([f"{where}: not valid TOML: {e}"]) from None
+        raise SpecError([f"{where}: not valid TOML: {str(e)[:200]}"]) from None
+    except RecursionError:
+        raise SpecError([f"{where}: arrays or tables nested too deeply; a spec needs at most two levels"]) from None
     problems: list[str] = []
     for key in data:
         if key not in TOP_KEYS:
-            problems.append(f"{where}: unknown top-level key {key!r}; allowed: [defaults] and [[kernel]]")
+            problems.append(f"{where}: unknown top-level key {_show(key)}; allowed: [defaults] and [[kernel]]")
     defaults = data.get("defaults", {})
     if not isinstance(defaults, dict):
         problems.append(f"{where}: 'defaults' must be a table ([defaults])")
@@ -59,7 +82,7 @@ def parse(text: str, spec_name: str, where: str | None = None) -> list[KernelOpt
     for key in defaults:
         if key not in DEFAULT_KEYS:
             allowed = ", ".join(DEFAULT_KEYS)
-            problems.append(f"{where}: [defaults]: unknown key {key!r}; allowed: {allowed}")
+            problems.append(f"{where}: [defaults]: unknown key {_show(key)}; allowed: {allowed}")
     kernels = data.get("kernel")
     if kernels is None:
         problems.append(f"{where}: no kernels: add at least one [[kernel]] table")
@@ -88,7 +111,7 @@ def parse(text: str, spec_name: str, where: str | None = None) -> list[KernelOpt
                 problems.append(f"{where}: kernel '{o.name}': key 'name': clashes with the {suffix} function of "
                                 f"kernel '{o.name[: -len(suffix)]}'")
     if problems:
-        raise SpecError(problems)
+        raise SpecError(list(dict.fromkeys(problems)))
     return out
 
 
@@ -97,9 +120,13 @@ def _kernel(entry: dict, defaults: dict, i: int, spec_name: str, where: str,
     raw_name = entry.get("name")
     label = f"kernel '{raw_name}'" if isinstance(raw_name, str) else f"kernel #{i}"
     start = len(problems)
+    from_defaults = {k for k in defaults if k in DEFAULT_KEYS and k not in entry and
+                     not (k in ("loop", "invariant") and ("loop" in entry or "invariant" in entry))}
 
     def bad(key: str, msg: str) -> None:
-        problems.append(f"{where}: {label}: key '{key}': {msg}")
+        # a value the kernel took from [defaults] is reported against [defaults], once (duplicates are dropped)
+        owner = "[defaults]" if key in from_defaults else label
+        problems.append(f"{where}: {owner}: key '{key}': {msg}")
 
     for key in entry:
         if key not in KERNEL_KEYS:
@@ -107,10 +134,10 @@ def _kernel(entry: dict, defaults: dict, i: int, spec_name: str, where: str,
     if raw_name is None:
         bad("name", "missing; every [[kernel]] needs a name (a C identifier)")
     elif not isinstance(raw_name, str) or not is_c_identifier(raw_name):
-        bad("name", f"{raw_name!r} is not a C identifier; allowed: ASCII letters, digits and '_', not starting "
+        bad("name", f"{_show(raw_name)} is not a C identifier; allowed: ASCII letters, digits and '_', not starting "
                     f"with a digit")
     elif raw_name in C_KEYWORDS:
-        bad("name", f"{raw_name!r} is a C keyword; choose another name")
+        bad("name", f"{_show(raw_name)} is a C keyword; choose another name")
 
     merged = dict(BUILTIN_DEFAULTS)
     merged.update({k: v for k, v in defaults.items() if k in DEFAULT_KEYS})
@@ -122,7 +149,7 @@ def _kernel(entry: dict, defaults: dict, i: int, spec_name: str, where: str,
     def choice(key: str, allowed) -> str | None:
         v = merged.get(key)
         if not isinstance(v, str) or v not in allowed:
-            bad(key, f"{v!r} is not allowed; allowed: {', '.join(allowed)}")
+            bad(key, f"{_show(v)} is not allowed; allowed: {', '.join(allowed)}")
             return None
         return v
 
@@ -135,12 +162,12 @@ def _kernel(entry: dict, defaults: dict, i: int, spec_name: str, where: str,
         bad("python", f"{python!r} is not allowed; allowed: true (also write NAME.py) or false (C only)")
     block = merged.get("block")
     if isinstance(block, bool) or not isinstance(block, int) or not 1 <= block <= MAX_BLOCK:
-        bad("block", f"{block!r} is not allowed; allowed: an integer from 1 (unblocked) to {MAX_BLOCK}")
+        bad("block", f"{_show(block)} is not allowed; allowed: an integer from 1 (unblocked) to {MAX_BLOCK}")
         block = None
 
     size = merged.get("size")
     if size is not None and (isinstance(size, bool) or not isinstance(size, int) or not 1 <= size <= MAX_SIZE):
-        bad("size", f"{size!r} is not allowed; allowed: an integer from 1 to {MAX_SIZE} (n fixed at compile "
+        bad("size", f"{_show(size)} is not allowed; allowed: an integer from 1 to {MAX_SIZE} (n fixed at compile "
                     f"time), or leave it out for n as an argument")
         size = None
 
@@ -184,6 +211,9 @@ def _kernel(entry: dict, defaults: dict, i: int, spec_name: str, where: str,
         bad("loop", f"missing; give 'loop' (one of {', '.join(_loops(lu))}) or 'invariant'")
 
     inner = None
+    if "inner" in entry and block == 1:
+        print(f"luforge: warning: {where}: {label}: key 'inner' has no effect with block = 1 (an unblocked kernel "
+              f"is the loop itself); remove it or set block > 1", file=sys.stderr)
     if "inner" in merged:
         v = choice("inner", _loops(lu))
         inner = by_name(lu, v) if v else None
@@ -212,7 +242,7 @@ def _kernel(entry: dict, defaults: dict, i: int, spec_name: str, where: str,
             isinstance(solve.get(k), str) and solve.get(k) in names for k in ("lower", "upper")):
         lower, upper = solve["lower"], solve["upper"]
     else:
-        bad("solve_loop", f"{solve!r} is not allowed; allowed: {' or '.join(names)}, or a table "
+        bad("solve_loop", f"{_show(solve)} is not allowed; allowed: {' or '.join(names)}, or a table "
                           f"{{ lower = ..., upper = ... }} of those")
 
     if len(problems) > start or inv is None or inner is None or lanes is None:

@@ -60,9 +60,16 @@ def run(args) -> int:
     old = {s: signal.signal(s, _raise_interrupted) for s in (signal.SIGTERM, signal.SIGHUP)}
     written: list[Path] = []
     try:
-        files: list[tuple[str, str]] = []
-        for o in options:
-            files += emit_kernel(o).written()   # everything is rendered before anything is written
+        from derive import names
+        emitted = [emit_kernel(o) for o in options]   # everything is rendered and checked before anything is written
+        errors, warnings = names.check([(e.options.name, e.files) for e in emitted])
+        for line in warnings:
+            print(f"luforge: warning: {spec}: {line}", file=sys.stderr)
+        if errors:
+            for line in errors:
+                print(f"luforge: {spec}: {line}", file=sys.stderr)
+            return fail("nothing was written (see the namespace rule in the README)")
+        files = [f for e in emitted for f in e.written()]
         files += fragments(spec.stem, spec.name, options)   # the CMake and Make lists of the sources
         if out.is_dir():
             note = recover(out)
