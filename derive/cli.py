@@ -39,7 +39,11 @@ def main(argv: list[str] | None = None) -> int:
     if getattr(args, "fn", None) is None:
         p.print_help()
         return 0
-    return args.fn(args)
+    try:
+        return args.fn(args)
+    except KeyboardInterrupt:       # a verb that writes handles this itself and says what was replaced
+        print(f"luforge: {args.verb}: interrupted", file=sys.stderr)
+        return 130
 
 
 if __name__ == "__main__":

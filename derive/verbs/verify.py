@@ -87,6 +87,10 @@ def run(args) -> int:
     directory = Path(args.output) if args.output else spec.resolve().parent
     if not directory.is_dir():
         return fail(f"-o {directory}: not a directory; generate the kernels there first", EXIT_FAILED)
+    from derive.printers.write import recover
+    note = recover(directory)       # an interrupted generate is repaired before anything is compared
+    if note:
+        print(f"luforge: note: {note}", file=sys.stderr)
     problems = drift(options, directory)
     if problems:
         for line in problems[:50]:
