@@ -152,7 +152,10 @@ def build(kernels: list[tuple[str, str, str]], flags: tuple[str, ...] = OPT_FLAG
     modname = f"_luforge_{key[:20]}"
     root = cache_root() / "mod" / key[:20]
     with _Lock(root.with_suffix(".lock")):
-        lib = next(iter(root.glob(f"{modname}*.so")), None) if root.exists() else None
+        # a module counts only once its build finished (marker written last): a build killed half-way
+        # leaves a truncated .so that must not be imported by the next run
+        done = root / "complete"
+        lib = next(iter(root.glob(f"{modname}*.so")), None) if done.exists() else None
         if lib is None:
             if root.exists():
                 shutil.rmtree(root)
@@ -168,6 +171,7 @@ def build(kernels: list[tuple[str, str, str]], flags: tuple[str, ...] = OPT_FLAG
                 lib = Path(ffi.compile(tmpdir=str(root), verbose=False))
             except Exception as e:  # cffi raises VerificationError and distutils errors
                 raise BuildError(f"building the cffi module failed: {e}") from e
+            done.write_text("")
     spec = importlib.util.spec_from_file_location(modname, lib)
     mod = importlib.util.module_from_spec(spec)
     spec.loader.exec_module(mod)
