@@ -49,7 +49,7 @@ PY_MODULES = frozenset(getattr(sys, "stdlib_module_names", ())) | {
 SIGNIFICANT = 31    # C99 5.2.4.1: external identifiers are guaranteed 31 significant characters
 
 _DEFINE = re.compile(r"^#\s*(?:define|ifndef|ifdef|undef)\s+([A-Za-z_]\w*)", re.M)
-_FUNCTION = re.compile(r"^(?![#/ \t{}])[^(;=]*?\b([A-Za-z_]\w*)\s*\(", re.M)
+_FUNCTION = re.compile(r"^(?![#/ \t{}])[^(;=\n]*?\b([A-Za-z_]\w*)[ \t]*\(", re.M)
 _COMMENT = re.compile(r"/\*.*?\*/|//[^\n]*|\"(?:\\.|[^\"\\])*\"", re.S)
 _TOKEN = re.compile(r"[A-Za-z_]\w*")
 
@@ -73,7 +73,7 @@ def symbols_of(name: str, files: tuple[tuple[str, str], ...]) -> Symbols:
     macros, functions, tokens, module = set(), set(), set(), name
     for fname, text in files:
         if fname.endswith((".c", ".h")):
-            code = _COMMENT.sub(" ", text)
+            code = _COMMENT.sub(" ", text).replace("\\\n", " ")   # continued lines (a long #if) joined
             macros |= set(_DEFINE.findall(code))
             functions |= {f for f in _FUNCTION.findall(code) if f not in C_KEYWORDS}
             tokens |= set(_TOKEN.findall(code))
