@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import sys
 import time
+from pathlib import Path
 from dataclasses import dataclass, field
 
 from derive.check.build import OPT_FLAGS
@@ -75,14 +76,24 @@ def _files(cand: Candidate) -> dict[str, str]:
     return dict(emit_kernel(to_options(cand)).files)
 
 
+def _checker() -> str:
+    """The checks' own sources: a verdict is reused only while verify judges the same way."""
+    import derive.check.accuracy
+    import derive.check.harness
+    import derive.check.verify
+    return "verify:" + "".join(Path(mod.__file__).read_text() for mod in (derive.check.verify, derive.check.accuracy,
+                                                                          derive.check.harness))
+
+
 def verify_all(items: list[Measured], files: dict[str, dict], cache: Cache, flags, target: str,
                progress: Progress) -> None:
     """Every candidate passes luforge's own verify (LAPACK's ratios, Higham's bound, canaries, the NumPy twin)
-    before it is measured; verdicts are cached by the code's key."""
+    before it is measured; verdicts are cached by the code's key and the checks' sources."""
     from derive.check.verify import verify
     todo = []
+    checker = _checker()
     for m in items:
-        got = cache.get("verified", code_key(files[m.cand.name], flags, "verify"))
+        got = cache.get("verified", code_key(files[m.cand.name], flags, checker))
         if got is None:
             todo.append(m)
         else:
@@ -93,7 +104,7 @@ def verify_all(items: list[Measured], files: dict[str, dict], cache: Cache, flag
         rows = verify([to_options(m.cand) for m in batch])
         for m, row in zip(batch, rows):
             m.verified, m.problems = row.passed, list(row.problems)
-            cache.put("verified", code_key(files[m.cand.name], flags, "verify"),
+            cache.put("verified", code_key(files[m.cand.name], flags, checker),
                       {"passed": row.passed, "problems": row.problems})
     if todo:
         progress.step("verified", len(todo), len(todo))
