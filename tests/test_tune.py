@@ -68,7 +68,7 @@ def test_every_variant_of_the_engine_is_a_candidate_and_nothing_else(pivoting, c
 
 
 def test_every_candidate_is_feasible_and_derivable():
-    cands, _ = enumerate_space(Case((8,), "double", "column-major", "partial"))
+    cands, _ = enumerate_space(Case((4,), "double", "column-major", "partial"))
     assert len({c.name for c in cands}) == len(cands)
     for c in cands:
         o = to_options(c)          # through the spec layer: a feasible, valid spec entry
@@ -116,15 +116,19 @@ class CountingBackend:
 
 
 def test_cache_second_run_measures_only_what_is_new(tmp_path, monkeypatch):
+    """The bookkeeping alone (verify and the clock are stand-ins here; the end-to-end test runs the real ones):
+    a repeated run measures and verifies nothing, a wider one only the new size and the new kernels."""
     backend = CountingBackend()
     monkeypatch.setattr(measure_mod, "backend", lambda target: backend)
     verified = []
     import derive.check.verify as verify_mod
-    real_verify = verify_mod.verify
+
+    class Passed:
+        passed, problems = True, []
 
     def counting_verify(options, *a, **k):
         verified.extend(o.name for o in options)
-        return real_verify(options, *a, **k)
+        return [Passed() for _ in options]
     monkeypatch.setattr(verify_mod, "verify", counting_verify)
     cache = Cache(tmp_path)
     quiet = run_mod.Progress(quiet=True)
@@ -146,8 +150,15 @@ def test_cache_second_run_measures_only_what_is_new(tmp_path, monkeypatch):
     assert rows and all(set(r.per_n) == {2, 3} for r in rows)
 
 
-def test_tune_on_the_host_end_to_end(tmp_path, capsys):
-    """The real pipeline on the smallest case: verify, time in the driver, rank, report, write."""
+def test_tune_on_the_host_end_to_end(tmp_path, capsys, monkeypatch):
+    """The real pipeline (verify, time in the driver, rank, report, write) on three candidates of the space, to
+    keep the suite's time: the whole space is the enumeration tests' job."""
+    real = run_mod.enumerate_space
+
+    def three(case):
+        cands, untuned = real(case)
+        return [c for c in cands if c.entry["block"] == 1 and "size" not in c.entry][:3], untuned
+    monkeypatch.setattr(run_mod, "enumerate_space", three)
     spec = tmp_path / "station.toml"
     spec.write_text(SPEC)
     code, out, err = cli(["tune", "--n", "2", "--no-contenders", "--quiet", "--report", str(tmp_path / "rep"),
@@ -258,7 +269,7 @@ def test_infeasible_request_is_one_line_and_exit_2(argv, says, capsys, tmp_path,
 # -- an emulated target: exact counts, the same on every run -------------------------------------------------------
 
 def test_emulated_target_counts_are_exact_and_repeat(tmp_path):
-    """Two candidates measured twice on cortex-m4f through the targets' report: the same instruction counts,
+    """A candidate measured twice on cortex-m4f through the targets' report: the same instruction counts,
     bytes and stack each time, so the ranking cannot change from run to run."""
     from derive.tune.space import CaseError
     try:
@@ -268,7 +279,7 @@ def test_emulated_target_counts_are_exact_and_repeat(tmp_path):
         pytest.skip(str(e))
     case = Case((3,), "float", target="cortex-m4f", nrhs=backend.default_nrhs)
     cands, _ = enumerate_space(case)
-    two = [c for c in cands if c.entry.get("block") == 1][:2]
+    two = [c for c in cands if c.entry.get("block") == 1][:1]
     kernels = [(c.name, dict(emit_kernel(to_options(c)).files), to_options(c)) for c in two]
     first, _, _ = backend.measure(case, 3, kernels, ())
     again, _, _ = backend.measure(case, 3, kernels, ())

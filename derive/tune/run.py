@@ -85,8 +85,16 @@ def _checker() -> str:
                                                                           derive.check.harness))
 
 
+def _budget(sizes, flags):
+    """verify's default budget (its sizes already cover 0..17, 31, 33 and 48; a fixed-size kernel is tried at its
+    own n), built with the flags being measured."""
+    from derive.check.build import OPT_FLAGS as BASE
+    from derive.check.verify import Budget
+    return Budget(cflags=tuple(f for f in flags if f not in BASE))
+
+
 def verify_all(items: list[Measured], files: dict[str, dict], cache: Cache, flags, target: str,
-               progress: Progress) -> None:
+               progress: Progress, case_sizes=()) -> None:
     """Every candidate passes luforge's own verify (LAPACK's ratios, Higham's bound, canaries, the NumPy twin)
     before it is measured; verdicts are cached by the code's key and the checks' sources."""
     from derive.check.verify import verify
@@ -101,7 +109,7 @@ def verify_all(items: list[Measured], files: dict[str, dict], cache: Cache, flag
     for i in range(0, len(todo), VERIFY_BATCH):
         progress.step(f"verifying {todo[i].cand.label()}", i, len(todo))
         batch = todo[i:i + VERIFY_BATCH]
-        rows = verify([to_options(m.cand) for m in batch])
+        rows = verify([to_options(m.cand) for m in batch], budget=_budget(case_sizes, flags))
         for m, row in zip(batch, rows):
             m.verified, m.problems = row.passed, list(row.problems)
             cache.put("verified", code_key(files[m.cand.name], flags, checker),
@@ -230,14 +238,14 @@ def tune(case: Case, objective, flags=OPT_FLAGS, fresh: bool = False, progress: 
             progress.step(f"deriving {m.cand.label()}", i, len(items))
             files[m.cand.name] = _files(m.cand)
         progress.step("derived", len(items), len(items))
-        verify_all(items, files, cache, flags, case.target, progress)
+        verify_all(items, files, cache, flags, case.target, progress, case.sizes)
         measure_all(case, items, files, cache, flags, progress, fresh, outcome, contenders)
         joined = [c for c in _join(case, items, objective.part_figure) if c.name not in files]
         if joined:
             extra = [Measured(c) for c in joined]
             for m in extra:
                 files[m.cand.name] = _files(m.cand)
-            verify_all(extra, files, cache, flags, case.target, progress)
+            verify_all(extra, files, cache, flags, case.target, progress, case.sizes)
             measure_all(case, extra, files, cache, flags, progress, fresh, outcome, contenders)
             items += extra
     except KeyboardInterrupt:
