@@ -77,6 +77,30 @@ def test_every_candidate_is_feasible_and_derivable():
         assert f"int {c.name}(" in files[f"{c.name}.h"]
 
 
+def test_yes_no_keys_try_both_values_and_fix_pins_them():
+    from derive.spec import KERNEL_KEYS
+    if "constant_time" not in KERNEL_KEYS:
+        pytest.skip("no yes/no key in this spec layer")
+    cands, _ = enumerate_space(Case((6,)))
+    assert {c.entry.get("constant_time") for c in cands} == {True, False}
+    # the spec layer allows branching only at a fixed size: tune drops what it refuses
+    assert all(c.entry.get("size") for c in cands if c.entry.get("constant_time") is False)
+    pinned, _ = enumerate_space(Case((6,), fixed=(("constant_time", True),)))
+    assert {c.entry.get("constant_time") for c in pinned} == {True}
+
+
+def test_cache_key_ignores_the_name_but_not_the_code():
+    from derive.tune.cache import code_key
+    from derive.tune.space import candidate
+    base = {"loop": "crout", "block": 1, "scalar": "double", "layout": "column-major", "pivoting": "partial",
+            "solve_loop": "outer-product"}
+    a, b = candidate(base, (8,), "factor"), candidate({**base, "constant_time": True}, (8,), "factor")
+    c = candidate({**base, "loop": "right-looking"}, (8,), "factor")
+    fa, fb, fc = (dict(emit_kernel(to_options(x)).files) for x in (a, b, c))
+    assert a.name != b.name and code_key(fa, (), "host") == code_key(fb, (), "host")
+    assert code_key(fa, (), "host") != code_key(fc, (), "host") != code_key(fc, ("-O3",), "host")
+
+
 # -- ranking ------------------------------------------------------------------------------------------------------
 
 def test_pareto_layers():

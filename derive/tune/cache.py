@@ -34,9 +34,18 @@ def machine() -> str:
 
 
 def code_key(files: dict[str, str], flags, target: str) -> str:
-    """Everything that determines a built kernel: its texts, the compiler and its version, flags and target."""
+    """Everything that determines a built kernel: its texts, the compiler and its version, flags and target.
+    The kernel's own name is taken out, so the same code reached under another name (a candidate whose
+    settings gained a key at its default value) finds its figures again."""
     cc = compiler()
-    return _digest(PROTOCOL, sorted(files.items()), cc, compiler_version(cc), list(flags), target)
+    stem = next((f[:-2] for f in files if f.endswith(".c")), None)
+
+    def plain(text: str) -> str:
+        # the banner's settings hash covers the name too: it is not code
+        text = "\n".join(ln for ln in text.splitlines() if "settings hash" not in ln and "_SETTINGS_HASH" not in ln)
+        return text.replace(stem, "@").replace(stem.upper(), "@@")
+    norm = sorted((f.replace(stem, "@"), plain(t)) for f, t in files.items()) if stem else sorted(files.items())
+    return _digest(PROTOCOL, norm, cc, compiler_version(cc), list(flags), target)
 
 
 class Cache:

@@ -38,6 +38,7 @@ class Case:
     pivoting: str = "partial"
     target: str = "host"
     nrhs: int = 1
+    fixed: tuple[tuple[str, object], ...] = ()     # whole-kernel keys the user pins (--fix KEY=VALUE)
 
     def __post_init__(self) -> None:
         if not self.sizes or any(n < 1 for n in self.sizes):
@@ -145,8 +146,12 @@ def whole_kernel_axes(case: Case) -> tuple[dict[str, list], list[str]]:
             continue
         if key in EXCLUDED_KEYS:
             continue
+        pinned = dict(case.fixed)
+        if key in pinned:
+            axes[key] = [pinned[key]]
+            continue
         rule = AXIS_RULES.get(key)
-        values = rule(case) if rule else _allowed_values(key)
+        values = rule(case) if rule else (_allowed_values(key) or _bool_values(key))
         if values is None:
             untuned.append(key)
         else:
@@ -160,6 +165,15 @@ def _allowed_values(key: str):
         v = getattr(optmod, attr, None)
         if isinstance(v, (tuple, list)) and v and all(isinstance(x, str) for x in v):
             return list(v)
+    return None
+
+
+def _bool_values(key: str):
+    """A yes/no key of the options (a bool field): its default first, then the other."""
+    import dataclasses
+    for f in dataclasses.fields(KernelOptions):
+        if f.name == key and f.type in ("bool", bool) and isinstance(f.default, bool):
+            return [f.default, not f.default]
     return None
 
 

@@ -40,6 +40,9 @@ def register(subparsers) -> None:
     p.add_argument("--weights", metavar="K=W,...", help="for --objective weighted: weights of speed, size, stack "
                                                         "(each figure divided by the best; default speed=1,size=1)")
     p.add_argument("--cflags", metavar="FLAGS", help="compiler flags for every candidate (default -O2 -fPIC)")
+    p.add_argument("--fix", action="append", default=[], metavar="KEY=VALUE",
+                   help="pin a whole-kernel spec key instead of trying its values, e.g. constant_time=true or "
+                        "size=8 (repeatable; VALUE in TOML)")
     p.add_argument("--no-contenders", action="store_true", help="do not time Eigen and LAPACK beside the candidates")
     p.add_argument("--fresh", action="store_true", help="measure again even what the cache holds")
     p.add_argument("--write", metavar="SPEC", help="add or update the winner in this spec (needs --name)")
@@ -60,6 +63,25 @@ def parse_sizes(text: str) -> tuple[int, ...]:
     return tuple(sorted(set(sizes)))
 
 
+def parse_fixed(items: list[str]) -> tuple:
+    import tomllib
+
+    from derive.spec import KERNEL_KEYS
+    from derive.tune.space import CASE_KEYS, FACTOR_KEYS, SOLVE_KEYS, CaseError
+    out = []
+    for item in items:
+        key, eq, value = item.partition("=")
+        key = key.strip()
+        allowed = [k for k in KERNEL_KEYS if k not in (*CASE_KEYS, *FACTOR_KEYS, *SOLVE_KEYS)]
+        if not eq or key not in allowed:
+            raise CaseError(f"--fix {item[:40]}: allowed: KEY=VALUE with KEY one of {', '.join(allowed)}")
+        try:
+            out.append((key, tomllib.loads(f"v = {value}")["v"]))
+        except tomllib.TOMLDecodeError:
+            raise CaseError(f"--fix {item[:40]}: the value must be TOML (true, 8, \"inline\")") from None
+    return tuple(out)
+
+
 def run(args) -> int:
     from derive.check.build import OPT_FLAGS, BuildError
     from derive.tune import measure
@@ -69,7 +91,8 @@ def run(args) -> int:
     try:
         be = measure.backend(args.target)
         nrhs = be.default_nrhs if args.nrhs is None else args.nrhs
-        case = Case(parse_sizes(args.n), args.scalar, args.layout, args.pivoting, args.target, nrhs)
+        case = Case(parse_sizes(args.n), args.scalar, args.layout, args.pivoting, args.target, nrhs,
+                    parse_fixed(args.fix))
         objective = Objective(args.objective or be.speed, case.nrhs,
                               parse_weights(args.weights) if args.objective == "weighted" else {"speed": 1.0})
         if args.weights and args.objective != "weighted":
