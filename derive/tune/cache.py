@@ -6,10 +6,12 @@ import hashlib
 import json
 import os
 import platform
+import re
 from pathlib import Path
 
 from derive.check.build import cache_root, compiler, compiler_version
 
+BANNER_HASH = re.compile(r"settings hash|content hash|_SETTINGS_HASH")
 PROTOCOL = "tune-1"      # bump when the way a figure is measured changes, so old figures are not reused
 
 
@@ -41,8 +43,8 @@ def code_key(files: dict[str, str], flags, target: str) -> str:
     stem = next((f[:-2] for f in files if f.endswith(".c")), None)
 
     def plain(text: str) -> str:
-        # the banner's settings hash covers the name too: it is not code
-        text = "\n".join(ln for ln in text.splitlines() if "settings hash" not in ln and "_SETTINGS_HASH" not in ln)
+        # the banner's settings and content hashes cover the name too: they are not code
+        text = "\n".join(ln for ln in text.splitlines() if not BANNER_HASH.search(ln))
         return text.replace(stem, "@").replace(stem.upper(), "@@")
     norm = sorted((f.replace(stem, "@"), plain(t)) for f, t in files.items()) if stem else sorted(files.items())
     return _digest(PROTOCOL, norm, cc, compiler_version(cc), list(flags), target)
