@@ -88,7 +88,7 @@ def render(out, objective, show_all: bool = False):
     measured = sum(1 for m in out.results if m.figures)
     cached = sum(m.cached for m in out.results)
     lines += ["", f"{len(out.results)} candidates, {measured} measured ({out.measured_now} figures now, {cached} from "
-                  f"the cache{f', {out.retimed} cached leaders re-timed beside the new ones' if out.retimed else ''}) in "
+                  f"the cache{f', {out.retimed} cached figures re-timed beside the new ones' if out.retimed else ''}) in "
                   f"{out.seconds:.1f} s; blocks tried: "
                   + "; ".join(f"n={n}: {', '.join(map(str, [1] + block_sizes(n)))}" for n in sizes), PRUNING]
     if out.untuned:
