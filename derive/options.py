@@ -8,11 +8,14 @@ from dataclasses import asdict, dataclass
 
 from derive.engine import operation
 from derive.engine.invariants import by_name, make
+from derive.targets.table import TARGETS
 
 SCALARS = ("double", "float")
 LAYOUTS = ("column-major", "row-major")
 PIVOTING = ("none", "partial")
 C_HELPERS = ("inline", "functions")     # inner operations as loops in the routine body, or as static functions
+PANELS = ("loop", "recursive")   # how the bottom level factors its panel: one column a step, or halves recursively
+                                 # (unblocked and recursive: the whole matrix is the panel)
 MAX_BLOCK = 4096
 MAX_SIZE = 32       # fixed-size kernels: n from 1 to this (larger n gains little over the runtime-n kernels)
 MAX_LANES = 64       # matrices interleaved in one group (`lanes`); 1 means not batched
@@ -40,8 +43,14 @@ class KernelOptions:
     lanes: int = 1                  # W matrices interleaved element by element (batched kernel); 1: one matrix
     c_helpers: str = "inline"       # how the C reads: inner operations inline as loops, or as helper functions
     python: bool = True             # also write the NumPy twin NAME.py (False: C only, for a firmware tree)
+    target: str = "generic"         # row of the target table the GEMM micro-kernels are specialised for
+    levels: tuple[tuple[int, tuple[str, ...]], ...] = ()   # blocked levels between the outer loop and the
+                                    # unblocked one: (block size, state words of that level's loop), outer first
+    panel: str = "loop"
 
     def __post_init__(self) -> None:
+        if self.target not in TARGETS:
+            raise ValueError(f"target {self.target!r} is not in the target table; allowed: {', '.join(TARGETS)}")
         if not is_c_identifier(self.name) or self.name in C_KEYWORDS:
             raise ValueError(f"kernel name {self.name!r} must be a C identifier that is not a C keyword")
         if self.scalar not in SCALARS or self.layout not in LAYOUTS or self.pivoting not in PIVOTING:
@@ -53,6 +62,13 @@ class KernelOptions:
         if self.size is not None and (isinstance(self.size, bool) or not 1 <= self.size <= MAX_SIZE):
             raise ValueError(f"size must be from 1 to {MAX_SIZE}")
         make(operation.LU, self.invariant)
+        sizes = [self.block] + [b for b, _ in self.levels]
+        if any(not 2 <= b <= MAX_BLOCK for b, _ in self.levels) or any(x <= y for x, y in zip(sizes, sizes[1:])):
+            raise ValueError("the block sizes of the levels must decrease, each from 2 up")
+        for _, words in self.levels:
+            make(operation.LU, words)
+        if self.panel not in PANELS:
+            raise ValueError(f"panel must be one of {PANELS}")
         make(operation.LU, self.inner)
         make(operation.LOWER_SOLVE, self.solve_lower)
         make(operation.UPPER_SOLVE, self.solve_upper)
@@ -92,6 +108,10 @@ class KernelOptions:
         if self.lanes != 1 and "c_helpers" in d:
             d.pop("c_helpers")  # nor does it to a batched kernel
         d.pop("python")     # which files are written, not what the code does
+        for key, default in ADDED_DEFAULTS.items():
+            # settings added later leave the hash of kernels that keep their default unchanged
+            if d[key] == default:
+                d.pop(key)
         d.update(loop=self.loop, inner_loop=self.inner_loop, lower_loop=self.lower_loop,
                  upper_loop=self.upper_loop)
         return d
@@ -99,6 +119,9 @@ class KernelOptions:
     def digest(self) -> str:
         blob = json.dumps(self.settings(), sort_keys=True, separators=(",", ":"))
         return hashlib.sha256(blob.encode()).hexdigest()[:16]
+
+
+ADDED_DEFAULTS = {"target": "generic", "levels": (), "panel": "loop"}
 
 
 def is_c_identifier(s: str) -> bool:
@@ -113,11 +136,12 @@ DEFAULT_SOLVE_LOOP = {"column-major": "outer-product", "row-major": "inner-produ
 def make_options(name: str, loop: str, block: int = 1, inner: str | None = None, scalar: str = "double",
                  layout: str = "column-major", pivoting: str = "none", solve_loop: str | None = None,
                  spec: str = "", size: int | None = None, constant_time: bool = True,
-                 lanes: int = 1, c_helpers: str = "inline", python: bool = True) -> KernelOptions:
+                 lanes: int = 1, c_helpers: str = "inline", python: bool = True,
+                 target: str = "generic") -> KernelOptions:
     """Convenience constructor from trade names (the spec reader validates and reports errors itself)."""
     inv = by_name(operation.LU, loop).words
     inn = by_name(operation.LU, inner or loop).words
     sl = solve_loop or DEFAULT_SOLVE_LOOP[layout]
     return KernelOptions(name, inv, block, inn if block > 1 else inv, scalar, layout, pivoting,
                          by_name(operation.LOWER_SOLVE, sl).words, by_name(operation.UPPER_SOLVE, sl).words, spec, size,
-                         constant_time, lanes, c_helpers, python)
+                         constant_time, lanes, c_helpers, python, target)

@@ -9,15 +9,16 @@ from pathlib import Path
 from derive.engine import operation
 from derive.engine.derivation import derive, pivoting_supported
 from derive.engine.invariants import InfeasibleInvariant, by_name, from_mapping
+from derive.targets.table import TARGETS
 from derive.options import (C_HELPERS, C_KEYWORDS, DEFAULT_SOLVE_LOOP, LAYOUTS, MAX_BLOCK, MAX_LANES, MAX_SIZE,
-                            PIVOTING, SCALARS, KernelOptions, is_c_identifier)
+                            PANELS, PIVOTING, SCALARS, KernelOptions, is_c_identifier)
 
 KERNEL_KEYS = ("name", "loop", "invariant", "block", "inner", "scalar", "layout", "pivoting", "solve_loop", "size",
-               "constant_time", "lanes", "c_helpers", "python")
+               "constant_time", "lanes", "c_helpers", "python", "target", "panel")
 DEFAULT_KEYS = tuple(k for k in KERNEL_KEYS if k != "name")
 TOP_KEYS = ("defaults", "kernel")
 BUILTIN_DEFAULTS = {"block": 1, "scalar": "double", "layout": "column-major", "pivoting": "none",
-                    "c_helpers": "inline", "python": True}
+                    "c_helpers": "inline", "python": True, "target": "generic", "panel": "loop"}
 # symbols a kernel emits besides its own name; another kernel may not take one of them
 PUBLIC_SUFFIXES = ("_solve", "_pack", "_unpack", "_selftest")   # NAME_selftest is also a file
 
@@ -160,10 +161,17 @@ def _kernel(entry: dict, defaults: dict, i: int, spec_name: str, where: str,
     python = merged.get("python")
     if not isinstance(python, bool):
         bad("python", f"{python!r} is not allowed; allowed: true (also write NAME.py) or false (C only)")
+    target = choice("target", tuple(TARGETS))
+    panel = choice("panel", PANELS)
     block = merged.get("block")
-    if isinstance(block, bool) or not isinstance(block, int) or not 1 <= block <= MAX_BLOCK:
-        bad("block", f"{_show(block)} is not allowed; allowed: an integer from 1 (unblocked) to {MAX_BLOCK}")
-        block = None
+    blocks = block if isinstance(block, list) and block else [block]
+    if any(isinstance(b, bool) or not isinstance(b, int) or not 1 <= b <= MAX_BLOCK for b in blocks) or (
+            len(blocks) > 1 and (min(blocks) < 2 or any(x <= y for x, y in zip(blocks, blocks[1:])))):
+        bad("block", f"{_show(block)} is not allowed; allowed: an integer from 1 (unblocked) to {MAX_BLOCK}, or a list "
+                     f"of decreasing block sizes from 2 up, one per level, e.g. [256, 32]")
+        block = blocks = None
+    else:
+        block = blocks[0]
 
     size = merged.get("size")
     if size is not None and (isinstance(size, bool) or not isinstance(size, int) or not 1 <= size <= MAX_SIZE):
@@ -214,15 +222,24 @@ def _kernel(entry: dict, defaults: dict, i: int, spec_name: str, where: str,
     if "inner" in entry and block == 1:
         print(f"luforge: warning: {where}: {label}: key 'inner' has no effect with block = 1 (an unblocked kernel "
               f"is the loop itself); remove it or set block > 1", file=sys.stderr)
+    inners = []        # the loop of every level below the outer one, the unblocked one last
     if "inner" in merged:
-        v = choice("inner", _loops(lu))
-        inner = by_name(lu, v) if v else None
+        raw = merged["inner"]
+        names = raw if isinstance(raw, list) else [raw] * len(blocks or [1])
+        if blocks and len(names) != len(blocks):
+            bad("inner", f"{raw!r}: allowed: one loop per level of 'block' ({len(blocks)}), or a single loop for all")
+        elif not all(isinstance(v, str) and v in _loops(lu) for v in names):
+            bad("inner", f"{raw!r} is not allowed; allowed: {', '.join(_loops(lu))}, or a list of those")
+        else:
+            inners = [by_name(lu, v) for v in names]
+            inner = inners[-1]
     else:
         inner = inv
+        inners = [inv] * len(blocks or [1])
     if pivoting and pivoting != "none":
         checks = [("loop" if "invariant" not in merged else "invariant", inv)]
         if "inner" in merged and block and block > 1:
-            checks.append(("inner", inner))
+            checks += [("inner", i) for i in dict.fromkeys(inners)]
         for key, which in checks:
             if which is None:
                 continue
@@ -245,12 +262,14 @@ def _kernel(entry: dict, defaults: dict, i: int, spec_name: str, where: str,
         bad("solve_loop", f"{_show(solve)} is not allowed; allowed: {' or '.join(names)}, or a table "
                           f"{{ lower = ..., upper = ... }} of those")
 
-    if len(problems) > start or inv is None or inner is None or lanes is None:
+    if len(problems) > start or inv is None or inner is None or lanes is None or target is None:
         return None
+    levels = tuple((b, i.words) for b, i in zip(blocks[1:], inners[:-1]))
     return KernelOptions(
         name=raw_name, invariant=inv.words, block=block, inner=inner.words if block > 1 else inv.words,
         scalar=scalar, layout=layout, pivoting=pivoting,
         solve_lower=by_name(operation.LOWER_SOLVE, lower).words,
         solve_upper=by_name(operation.UPPER_SOLVE, upper).words, spec=spec_name, size=size,
-        constant_time=constant_time, lanes=lanes, c_helpers=c_helpers, python=python)
+        constant_time=constant_time, lanes=lanes, c_helpers=c_helpers, python=python, target=target,
+        levels=levels, panel=panel)
 

@@ -16,6 +16,7 @@ from derive.check.build import OPT_FLAGS, build, load_python
 from derive.check.harness import CKernel
 from derive.check.matrices import exact_factors, lapack_ge_matrix
 from derive.options import KernelOptions
+from derive.targets.table import get as get_target, runs_here
 
 # LAPACK TESTING/dtest.in: THRESH = 30.0, the largest acceptable test ratio
 THRESHOLD = 30.0
@@ -57,6 +58,7 @@ class Row:
     worst_solve: float = 0.0
     problems: list[str] = field(default_factory=list)
     seconds: float = 0.0
+    not_run: str = ""       # why a kernel was compiled but not run (its target's CPU features are missing here)
 
     @property
     def passed(self) -> bool:
@@ -314,12 +316,23 @@ def _verify_in(options: list[KernelOptions], directory: Path, budget: Budget,
     where = shipped_files(options, directory)
     texts = [(o.name, where[o.name][".c"].read_text(encoding="utf-8"), where[o.name][".h"].read_text(encoding="utf-8"))
              for o in options]
-    mod = build(texts, (*OPT_FLAGS, *budget.cflags))
+    mods = {}
+    for target in dict.fromkeys(o.target for o in options):
+        # one module per row of the target table: each needs its own ISA flags
+        group = [t for t, o in zip(texts, options) if o.target == target]
+        mod = build(group, (*OPT_FLAGS, *budget.cflags, *get_target(target).codegen_flags))
+        mods.update({name: mod for name, _, _ in group})
     rows = []
     for i, o in enumerate(options, start=1):
         t0 = time.perf_counter()
         kind = kind_of(o)
-        subject = Subject(o, CKernel(mod, o), load_python(where[o.name][".py"]))
+        row_target = get_target(o.target)
+        if not runs_here(row_target):
+            rows.append(Row(o.name, kind.name, [], not_run=f"compiled for {row_target.name}; this CPU lacks "
+                                                           f"{', '.join(row_target.cpu_features)}, not run"))
+            progress(f"verify [{i}/{len(options)}] {o.name}: compiled, not run here")
+            continue
+        subject = Subject(o, CKernel(mods[o.name], o), load_python(where[o.name][".py"]))
         rng = np.random.default_rng([budget.seed, i - 1])
         row = kind.check(subject, budget, rng)
         if budget.sanitize:
@@ -336,7 +349,8 @@ def table(rows: list[Row]) -> str:
     head = ("kernel", "sizes tried (n)", "matrices", "worst factor ratio", "worst |PA-LU|/(gamma_n|L||U|)",
             "worst solve ratio", "result")
     body = [(r.name, size_ranges(r.sizes), str(r.matrices), f"{r.worst_factor:.3f}", f"{r.worst_componentwise:.3f}",
-             f"{r.worst_solve:.3f}", "pass" if r.passed else "FAIL") for r in rows]
+             f"{r.worst_solve:.3f}", "pass" if r.passed else "FAIL") if not r.not_run else
+            (r.name, "-", "0", "-", "-", "-", "not run") for r in rows]
     widths = [max(len(x) for x in col) for col in zip(head, *body)]
     fmt = "  ".join(f"{{:<{w}}}" for w in widths)
     out = [fmt.format(*row).rstrip() for row in (head, tuple("-" * w for w in widths), *body)]
@@ -345,6 +359,8 @@ def table(rows: list[Row]) -> str:
             out.append(f"{r.name}: {p}")
         if len(r.problems) > 20:
             out.append(f"{r.name}: ... and {len(r.problems) - 20} more problems")
+        if r.not_run:
+            out.append(f"{r.name}: {r.not_run}")
     out.append(f"thresholds: factor and solve ratios < {THRESHOLD:g} (LAPACK TESTING/dtest.in), "
                f"componentwise <= 1 (Higham 2002, Thm 9.3); above n={RANDOM_UP_TO} exact factors bit for bit")
     return "\n".join(out) + "\n"

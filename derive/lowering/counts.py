@@ -2,8 +2,8 @@
 additions, divisions; comparisons and interchanges are free). Tests hold these to the closed forms below."""
 from __future__ import annotations
 
-from derive.lowering.ir import (Call, FactorCall, Gemm, Kernel, Loop, OneColumn, PivotCheck, PivotSearch, RowSwaps, Routine,
-                               Scale, Step, Trsm)
+from derive.lowering.ir import (Call, FactorCall, Gemm, Kernel, Leaf, Loop, OneColumn, PivotCheck, PivotSearch, RowSwaps,
+                               Routine, Scale, Step, Trsm)
 
 
 def lu_flops(n: int) -> int:
@@ -20,7 +20,7 @@ def _stmt(s, env: dict[str, int], kernel: Kernel) -> int:
     if isinstance(s, Loop):
         total, k, extent = 0, 0, s.extent.evaluate(env)
         while k < extent:
-            kb = min(s.step, extent - k)
+            kb = (extent + 1) // 2 if s.halves and k == 0 else extent - k if s.halves else min(s.step, extent - k)
             inner = dict(env, **{s.var: k, "kb": kb})
             total += sum(_stmt(t, inner, kernel) for t in s.body)
             k += kb
@@ -53,7 +53,14 @@ def _stmt(s, env: dict[str, int], kernel: Kernel) -> int:
 
 
 def routine_flops(r: Routine, env: dict[str, int], kernel: Kernel) -> int:
-    return sum(_stmt(s, env, kernel) for s in r.body)
+    total = 0
+    for s in r.body:
+        if isinstance(s, Leaf):
+            if env[s.cols] <= s.limit:
+                return total + routine_flops(kernel.routine(s.routine), env, kernel)
+            continue
+        total += _stmt(s, env, kernel)
+    return total
 
 
 def kernel_flops(kernel: Kernel, n: int, nrhs: int = 1) -> tuple[int, int]:

@@ -178,17 +178,35 @@ class RowSwaps:
 
 @dataclass(frozen=True, slots=True)
 class Loop:
-    """for var in 0, step, ... < extent; kb = min(step, extent - var) is the current block size."""
+    """for var in 0, step, ... < extent; kb = min(step, extent - var) is the current block size.
+    With `halves` the loop makes two steps, kb = ceil(extent / 2) and then the rest (a recursive split)."""
     var: str
     extent: Lin
     step: int
     body: tuple
     invariant: str
     partition: str
+    halves: bool = False
 
     def __post_init__(self) -> None:
         if self.step < 1:
             raise ValueError("loop step must be >= 1")
+        if self.halves and self.step != 2:
+            raise ValueError("a loop over halves makes two steps: give step 2")
+
+
+@dataclass(frozen=True, slots=True)
+class Leaf:
+    """A recursion's base case: when the block has at most `limit` columns (`cols`), factor it by `routine`
+    and return what that returns."""
+    cols: str
+    limit: int
+    routine: str
+    source: str
+
+    def __post_init__(self) -> None:
+        if self.limit < 1:
+            raise ValueError("a recursion's leaf must hold at least one column")
 
 
 @dataclass(frozen=True, slots=True)

@@ -5,11 +5,13 @@ from __future__ import annotations
 from derive.engine import operation
 from derive.engine.derivation import THREE_WAY, Derivation, derive
 from derive.engine.invariants import TWO_WAY, content_of, content_text, make
-from derive.lowering.ir import (Block, Call, FactorCall, Gemm, Kernel, Loop, Param, PivotCheck, PivotSearch, RowSwaps,
+from derive.lowering.ir import (Block, Call, FactorCall, Gemm, Kernel, Leaf, Loop, Param, PivotCheck, PivotSearch,
+                                RowSwaps,
                  Routine, Scale, Span, Trsm, lin)
 from derive.engine.operation import Operation
 from derive.options import KernelOptions
 from derive.lowering.printing import show_span
+from derive.targets.table import get as get_target
 
 K = "k"
 KB = "kb"
@@ -126,12 +128,48 @@ def partition_text(op: Operation, frame: Frame, rows: str, cols: str) -> str:
     return f"rows {ranges(rows)}; columns {ranges(cols)}"
 
 
-def lower_loop(d: Derivation, step: int, shapes: Shapes, extent: str, inner: str | None, label: str) -> Loop:
+def lower_loop(d: Derivation, step: int, shapes: Shapes, extent: str, inner: str | None, label: str,
+               halves: bool = False) -> Loop:
     op = d.operation
     body = lower_updates(d, step, shapes, inner)
     _, rows, cols = shapes.args[op.target]
     part = partition_text(op, Frame(op, step), rows, cols)
-    return Loop(K, lin(extent), step, body, invariant_text(op, d.invariant.words, label), part)
+    return Loop(K, lin(extent), step, body, invariant_text(op, d.invariant.words, label), part, halves)
+
+
+def panel_routines(o: KernelOptions, piv: tuple, on_zero: str) -> tuple[list[Routine], str]:
+    """The routines below the outer loop, deepest first, and the name of the one the outer loop calls. Every
+    level is the same lowering of a derived loop on an m x n panel: the unblocked loop at the bottom; with
+    panel = "recursive", above it the loop split into two halves whose first half is the routine itself
+    (the 2x1/1x2 partition with a block of half the columns); then each blocked level, calling the one below."""
+    lu = operation.LU
+    params = (Param("m", "size"), Param("n", "size"), Param("a", "matrix"), Param("lda", "size")) + piv
+    shapes = Shapes({"A": ("a", "m", "n")})
+    mats, ext = (("a", "lda"),), (("a", "m,n"),)
+    what = "panel" if piv else "block"
+    out = []
+    inv = make(lu, o.inner)
+    below = f"{o.name}_inner"
+    out.append(Routine(below, "inner", params, (lower_loop(derive(lu, inv, o.pivoting), 1, shapes, "n", None,
+                                                           inv.label),), on_zero,
+                       f"unblocked {inv.label} LU of an m x n block (m >= n)", mats, ext))
+    if o.panel == "recursive":
+        name = f"{o.name}_halves"
+        leaf = get_target(o.target).blocks(o.scalar).leaf
+        loop = lower_loop(derive(lu, inv, o.pivoting), 2, shapes, "n", name, inv.label, halves=True)
+        out.append(Routine(name, "inner", params,
+                           (Leaf("n", leaf, below, f"at most {leaf} columns: the unblocked loop"), loop), on_zero,
+                           f"{inv.label} LU of an m x n {what} (m >= n), its columns split in halves recursively",
+                           mats, ext))
+        below = name
+    for depth, (step, words) in reversed(list(enumerate(o.levels, start=1))):
+        lv = make(lu, words)
+        name = f"{o.name}_level{depth}"
+        loop = lower_loop(derive(lu, lv, o.pivoting), step, shapes, "n", below, lv.label)
+        out.append(Routine(name, "inner", params, (loop,), on_zero,
+                           f"{lv.label} LU of an m x n {what} (m >= n) in blocks of {step}", mats, ext))
+        below = name
+    return out, below
 
 
 def lower_kernel(o: KernelOptions) -> Kernel:
@@ -143,22 +181,18 @@ def lower_kernel(o: KernelOptions) -> Kernel:
     routines = []
     inner_name = None
     main = make(lu, o.invariant)
-    if o.block > 1:
-        inner_name = f"{o.name}_inner"
-        inner_inv = make(lu, o.inner)
-        dv = derive(lu, inner_inv, o.pivoting)
-        shapes = Shapes({"A": ("a", "m", "n")})
-        loop = lower_loop(dv, 1, shapes, "n", None, inner_inv.label)
-        routines.append(Routine(
-            inner_name, "inner",
-            (Param("m", "size"), Param("n", "size"), Param("a", "matrix"), Param("lda", "size")) + piv,
-            (loop,), on_zero,
-            f"unblocked {inner_inv.label} LU of an m x n block (m >= n)", (("a", "lda"),), (("a", "m,n"),)))
+    if o.block > 1 or o.panel == "recursive":
+        routines, inner_name = panel_routines(o, piv, on_zero)
     dv = derive(lu, main, o.pivoting)
     shapes = Shapes({"A": ("a", "n", "n")})
-    loop = lower_loop(dv, o.block, shapes, "n", inner_name, main.label)
+    if o.block == 1 and o.panel == "recursive":
+        # unblocked and recursive: the whole matrix is the one panel the recursion halves
+        whole = Block("a", Span(lin(0), lin("n")), Span(lin(0), lin("n")))
+        body = (FactorCall(whole, inner_name, pivoted, "A = L U, the matrix as one panel"),)
+    else:
+        body = (lower_loop(dv, o.block, shapes, "n", inner_name, main.label),)
     routines.append(Routine(
-        o.name, "factor", (Param("n", "size"), Param("a", "matrix"), Param("lda", "size")) + piv, (loop,),
+        o.name, "factor", (Param("n", "size"), Param("a", "matrix"), Param("lda", "size")) + piv, body,
         on_zero, "LU factorization", (("a", "lda"),), (("a", "n,n"),)))
     solve_args = (Param("n", "size"), Param("nrhs", "size"), Param("lu", "const_matrix"), Param("lda", "size"))
     rhs = (Param("b", "matrix"), Param("ldb", "size"))

@@ -2,8 +2,8 @@
 Language printers (C, Python) build on show_lin; the dump is what `luforge derive --ir` prints."""
 from __future__ import annotations
 
-from derive.lowering.ir import (Block, Call, FactorCall, Gemm, Lin, Loop, OneColumn, PivotCheck, PivotSearch, RowSwaps,
-                               Routine, Scale, Span, Step, Trsm)
+from derive.lowering.ir import (Block, Call, FactorCall, Gemm, Leaf, Lin, Loop, OneColumn, PivotCheck, PivotSearch,
+                               RowSwaps, Routine, Scale, Span, Step, Trsm)
 
 
 def show_lin(x: Lin, names: dict[str, str] | None = None, unsigned: bool = False) -> str:
@@ -32,8 +32,11 @@ def show_block(b: Block) -> str:
 
 def dump_stmt(s, indent: str = "") -> list[str]:
     if isinstance(s, Loop):
-        lines = [f"{indent}loop {s.var} over [0, {show_lin(s.extent)}) step {s.step}"
-                 + (f", kb = min({s.step}, {show_lin(s.extent)} - {s.var})" if s.step > 1 else ""),
+        head = (f"{indent}loop {s.var} over [0, {show_lin(s.extent)}) in two halves, kb = ceil({show_lin(s.extent)}/2)"
+                f" then the rest" if s.halves else
+                f"{indent}loop {s.var} over [0, {show_lin(s.extent)}) step {s.step}"
+                + (f", kb = min({s.step}, {show_lin(s.extent)} - {s.var})" if s.step > 1 else ""))
+        lines = [head,
                  f"{indent}  invariant {s.invariant}",
                  f"{indent}  positions {s.partition}"]
         for t in s.body:
@@ -77,6 +80,8 @@ def dump_stmt(s, indent: str = "") -> list[str]:
                 f"{show_span(s.steps)}{how}    [{s.source}]"]
     if isinstance(s, Call):
         return [f"{indent}call {s.routine}    [{s.source}]"]
+    if isinstance(s, Leaf):
+        return [f"{indent}if {s.cols} <= {s.limit}: return {s.routine}    [{s.source}]"]
     raise TypeError(type(s))
 
 

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import re
 
-from derive.lowering.ir import (Block, Call, FactorCall, Gemm, Lin, Loop, Param, PivotCheck, PivotSearch, RowSwaps, Routine, Scale,
+from derive.lowering.ir import (Block, Call, FactorCall, Gemm, Leaf, Lin, Loop, Param, PivotCheck, PivotSearch, RowSwaps, Routine, Scale,
                  Span, Trsm)
 from derive.lowering.printing import show_lin
 from derive.printers.cloops import InlineLoops, joined_exchange
@@ -55,6 +55,11 @@ class CPrinter:
         for dep in HELPER_DEPS.get(name, ()):
             self.needs.add(dep)
         return f"{self.prefix}_{name}"
+
+    def routine_for(self, op: str) -> str:
+        """The helper that carries an inner operation (gemm, trsm_*, swaps); a target's printer may route it
+        to its own."""
+        return self.helper(op)
 
     def guarded(self, sizes: list[Lin], call: str) -> str:
         """Skip a call on an empty block: even forming the address of an empty block may point past the array.
@@ -109,6 +114,12 @@ class CPrinter:
         if s.step == 1:
             out.append(f"{indent}for ({k} = 0U; {k} < {e}; ++{k}) {{")
             out += self.statements(s.body, indent + "    ")
+        elif s.halves:
+            # two steps: half the columns (rounded up), then the rest
+            out += [f"{indent}{k} = 0U;", f"{indent}while ({k} < {e}) {{",
+                    f"{indent}    kb = ({k} == 0U) ? (({e} + 1U) / 2U) : ({e} - {k});"]
+            out += self.statements(s.body, indent + "    ")
+            out.append(f"{indent}    {k} += kb;")
         else:
             # a while loop: the step kb is set in the body, which a well-formed for loop may not do
             out += [f"{indent}{k} = 0U;", f"{indent}while ({k} < {e}) {{",
@@ -123,14 +134,14 @@ class CPrinter:
         if self.loops is not None:
             return [self.comment(f"{s.shape}: from {s.source}", indent)] + self.loops.gemm(s, indent)
         m, n, kk = s.c.rows.size, s.c.cols.size, s.a.cols.size
-        fn = self.helper(s.shape)
+        fn = self.routine_for(s.shape)
         a, b, c = self.ptr(s.a), self.ptr(s.b), self.ptr(s.c)
         sizes = {"dot": [kk], "gemv_n": [m, kk], "gemv_t": [n, kk], "ger": [m, n], "gemm": [m, n, kk]}[s.shape]
         call = f"{fn}({', '.join(self.x(z) for z in sizes)}, {a}, {b}, {c});"
         return [self.comment(f"{s.shape}: from {s.source}", indent), indent + self.guarded(sizes, call)]
 
     def visit_Trsm(self, s: Trsm, indent: str) -> list[str]:
-        fn = self.helper({("left", "L"): "trsm_llu", ("left", "U"): "trsm_lun", ("right", "U"): "trsm_run"}[
+        fn = self.routine_for({("left", "L"): "trsm_llu", ("left", "U"): "trsm_lun", ("right", "U"): "trsm_run"}[
             (s.side, s.uplo)])
         m, n = s.b.rows.size, s.b.cols.size
         call = f"{fn}({self.x(m)}, {self.x(n)}, {self.ptr(s.tri)}, {self.ptr(s.b)});"
@@ -167,7 +178,11 @@ class CPrinter:
         fn = f"{s.routine}"
         out = [self.comment(f"{'panel factor with partial pivoting' if s.pivoted else 'factor the diagonal block'}"
                             f" by the inner loop: from {s.source}", indent), f"{indent}{{"]
-        if s.pivoted:
+        if s.pivoted and s.block.rows.lo == Lin():
+            # the block starts at row 0: its pivot indices and code need no offset
+            out += [f"{indent}    const int r = {fn}({m}, {n}, {self.ptr(s.block)}, ipiv);",
+                    f"{indent}    if ((r != 0) && (info == 0)) {{ info = r; }}"]
+        elif s.pivoted:
             out += [f"{indent}    const int r = {fn}({m}, {n}, {self.ptr(s.block)}, &ipiv[{r0}]);",
                     f"{indent}    size_t i;",
                     f"{indent}    for (i = {r0}; i < ({r0} + {n}); ++i) {{ ipiv[i] += (int)({r0}); }}",
@@ -181,12 +196,16 @@ class CPrinter:
     def visit_RowSwaps(self, s: RowSwaps, indent: str) -> list[str]:
         if self.loops is not None:
             return self.statements([s], indent)
-        fn = self.helper("swaps")
+        fn = self.routine_for("swaps")
         ncols = s.cols.size
         start = f"&{self.at(s.matrix, Lin(), s.cols.lo)}"
         call = (f"{fn}({self.x(ncols)}, {start}, {self.ld(s.matrix)}, {self.x(s.steps.lo)}, "
                 f"{self.x(s.steps.hi)}, ipiv);")
         return [self.comment(f"row interchanges: {s.source}", indent), indent + self.guarded([ncols], call)]
+
+    def visit_Leaf(self, s: Leaf, indent: str) -> list[str]:
+        args = ", ".join(self.names.get(p.name, p.name) for p in self.routine.params)
+        return [self.comment(s.source, indent), f"{indent}if ({s.cols} <= {s.limit}) return {s.routine}({args});"]
 
     def visit_Call(self, s: Call, indent: str) -> list[str]:
         args = ", ".join(self.names.get(p.name, p.name) for p in self.routine.params

@@ -13,7 +13,8 @@ from derive.engine import operation
 from derive.lowering.counts import kernel_flops
 from derive.printers.cfixed import FixedCPrinter
 from derive.printers import firmware
-from derive.printers.cprinter import HELPER_ORDER, CPrinter
+from derive.printers.cprinter import HELPER_ORDER
+from derive.printers.microkernel import packed_parts, printer_for
 from derive.lowering.fixed import lower_fixed
 from derive.engine.invariants import make
 from derive.lowering.ir import Kernel
@@ -101,7 +102,7 @@ def emit_kernel(o: KernelOptions, choices: str | None = None) -> Emitted:
                   size=o.size, constant_time=o.constant_time)
 
     cp = (FixedCPrinter(o.name, layout, scalar, o.size) if o.size is not None
-          else CPrinter(o.name, layout, scalar, o.c_helpers))
+          else printer_for(o, layout, scalar))
     internal, public = [], []
     for r in kernel.routines:
         body = cp.body(r)
@@ -111,7 +112,7 @@ def emit_kernel(o: KernelOptions, choices: str | None = None) -> Emitted:
     helpers = [h for h in HELPER_ORDER if h in cp.needs]
     at_index = layout.index
     c_text = env.get_template("c/kernel.c.j2").render(helpers=helpers, internal=internal, public=public,
-                                                       at_index=at_index, **common)
+                                                       at_index=at_index, **packed_parts(cp), **common)
     h_text = env.get_template("c/kernel.h.j2").render(
         guard=f"{o.name.upper()}_H", factor_params=_params(public[0]["signature"]),
         solve_params=_params(public[1]["signature"]), **common)

@@ -4,8 +4,8 @@ from __future__ import annotations
 
 from derive.engine import operation
 from derive.engine.invariants import TWO_WAY, bind, content_of, summation_set, term_uses
-from derive.lowering.ir import (Block, Call, FactorCall, Gemm, Lin, Loop, OneColumn, PivotCheck, PivotSearch, RowSwaps,
-                               Routine, Scale, Span, Step, Trsm)
+from derive.lowering.ir import (Block, Call, FactorCall, Gemm, Leaf, Lin, Loop, OneColumn, PivotCheck, PivotSearch,
+                               RowSwaps, Routine, Scale, Span, Step, Trsm)
 from derive.lowering.printing import show_lin
 
 
@@ -37,6 +37,9 @@ class PyPrinter:
         out = [f"{indent}# loop invariant, {s.invariant}", f"{indent}# partition at step {k}: {s.partition}"]
         if s.step == 1:
             out += [f"{indent}for {k} in range({e}):", f"{indent}    kb = 1"]
+        elif s.halves:
+            out += [f"{indent}for {k} in range(0, {e}, ({e} + 1) // 2):",
+                    f"{indent}    kb = ({e} + 1) // 2 if {k} == 0 else {e} - {k}"]
         else:
             out += [f"{indent}for {k} in range(0, {e}, {s.step}):", f"{indent}    kb = min({s.step}, {e} - {k})"]
         for t in s.body:
@@ -101,6 +104,11 @@ class PyPrinter:
     def visit_RowSwaps(self, s: RowSwaps, indent: str) -> list[str]:
         return [f"{indent}# row interchanges: {s.source}",
                 f"{indent}_swaps({s.matrix}[:, {self.sl(s.cols)}], ipiv, {self.x(s.steps.lo)}, {self.x(s.steps.hi)})"]
+
+    def visit_Leaf(self, s: Leaf, indent: str) -> list[str]:
+        args = ", ".join(p.name for p in self.routine.params if p.kind != "size")
+        return [f"{indent}# {s.source}", f"{indent}if {s.cols} <= {s.limit}:",
+                f"{indent}    return {self.fn(s.routine)}({args})"]
 
     def visit_Call(self, s: Call, indent: str) -> list[str]:
         return [f"{indent}# {s.source}", f"{indent}{self.fn(s.routine)}(lu, b)"]

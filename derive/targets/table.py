@@ -14,12 +14,46 @@ class Blocking:
     mc: int
     kc: int
     nc: int
+    pack_from: int = 16     # smallest kernel block size whose GEMM updates are packed; below it the plain loops
+                            # win, since packing costs O(mk + kn) and pays off only over k-long dot products
+    strip: int = 32         # columns per strip when row interchanges are applied column-outer
+    tri: int = 32           # diagonal blocks a blocked TRSM solves by plain loops (the rest goes through GEMM)
+    leaf: int = 8           # a recursive panel stops halving at this many columns and runs the unblocked loop
 
     def __post_init__(self) -> None:
-        if min(self.mr, self.nr, self.mc, self.kc, self.nc) < 1:
+        if min(self.mr, self.nr, self.mc, self.kc, self.nc, self.pack_from, self.strip, self.tri, self.leaf) < 1:
             raise ValueError("every block extent must be >= 1")
         if self.mc % self.mr or self.nc % self.nr:
             raise ValueError("mc must be a multiple of mr and nc of nr")
+
+
+@dataclass(frozen=True, slots=True)
+class Simd:
+    """How one scalar's vector registers are spelled in a target's intrinsics: the header, the vector type and
+    the operations the micro-kernel uses (unaligned load and store, broadcast, zero, fused multiply-add)."""
+    header: str
+    vtype: str
+    lanes: int
+    loadu: str
+    storeu: str
+    set1: str
+    setzero: str
+    fmadd: str
+    sub: str
+    prefetch: str = ""      # statement that pulls the cache line at address {p} into L1; "" if none
+
+    def __post_init__(self) -> None:
+        if self.lanes < 1:
+            raise ValueError("a vector holds at least one lane")
+
+
+def _x86(width: int, scalar: str) -> Simd:
+    """Intel's intrinsic naming: _mm<width>_<op>_<pd|ps>, types __m<width>[d] (common practice)."""
+    w = "" if width == 128 else str(width)
+    sfx, vt, lanes = ("pd", f"__m{width}d", width // 64) if scalar == "double" else ("ps", f"__m{width}", width // 32)
+    return Simd("immintrin.h", vt, lanes, f"_mm{w}_loadu_{sfx}", f"_mm{w}_storeu_{sfx}", f"_mm{w}_set1_{sfx}",
+                f"_mm{w}_setzero_{sfx}", f"_mm{w}_fmadd_{sfx}", f"_mm{w}_sub_{sfx}",
+                "_mm_prefetch((const char *)({p}), _MM_HINT_T0)")
 
 
 @dataclass(frozen=True, slots=True)
@@ -30,6 +64,8 @@ class Target:
     vector_bytes: int                       # SIMD register width the micro-kernels assume; 0: plain scalar C
     blocking: tuple[tuple[str, Blocking], ...]   # scalar name -> register/cache blocks
     codegen_flags: tuple[str, ...] = ()     # flags a kernel specialised for this target needs (ISA extensions)
+    simd: tuple[tuple[str, Simd], ...] = ()  # scalar -> intrinsics of the micro-kernel; absent: portable C loops
+    cpu_features: tuple[str, ...] = ()      # /proc/cpuinfo flags a machine needs to run such a kernel
     # -- where a kernel is built and run to be checked ---------------------------------------------------------
     cc: tuple[str, ...] = ("cc",)           # the compiler command (CC overrides it for the host rows)
     cflags: tuple[str, ...] = ()            # architecture, FPU and ABI
@@ -61,15 +97,30 @@ class Target:
             raise ValueError(f"target {self.name}: max_n must be >= 1 and paint_bytes a multiple of 4")
         if self.vector_bytes < 0:
             raise ValueError(f"target {self.name}: vector_bytes must be >= 0")
+        for scalar, v in self.simd:
+            b = self.blocks(scalar)
+            if v.lanes * (8 if scalar == "double" else 4) != self.vector_bytes or b.mr % v.lanes:
+                raise ValueError(f"target {self.name}: {scalar} vectors must fill vector_bytes and divide mr")
 
     def blocks(self, scalar: str) -> Blocking:
         return dict(self.blocking)[scalar]
+
+    def vectors(self, scalar: str) -> Simd | None:
+        return dict(self.simd).get(scalar)
 
 
 # Register blocks from the register count and vector width (common practice: an mr x nr accumulator tile
 # that leaves a few registers for the A and B vectors); cache blocks sized so a kc x nr sliver of B stays in
 # L1 and an mc x kc panel of A in L2 (common practice). Tuned figures replace these as they are measured.
 _SCALAR_C = (("double", Blocking(4, 4, 64, 128, 512)), ("float", Blocking(4, 4, 64, 128, 512)))
+# generic: 8 x 6 doubles vectorize cleanly when a compiler has 256-bit registers (-march=native on a
+# current x86 or a 2 x 128-bit core) and stay correct, only slower, in plain scalar code; cache blocks for a
+# desktop-class core (32 KB L1, 1 MB L2).
+_GENERIC = (("double", Blocking(8, 6, 96, 256, 1536)), ("float", Blocking(16, 6, 96, 256, 1536)))
+# x86-64-v3: 16 ymm registers; 8 x 6 doubles = 12 accumulators + 2 A vectors + 1 broadcast (common practice).
+_AVX2 = (("double", Blocking(8, 6, 96, 256, 1536)), ("float", Blocking(16, 6, 96, 256, 1536)))
+# x86-64-v4: 32 zmm registers; 16 x 12 doubles = 24 accumulators + 2 A vectors + 1 broadcast.
+_AVX512 = (("double", Blocking(16, 12, 96, 256, 1536)), ("float", Blocking(32, 12, 96, 256, 1536)))
 
 _QEMU_BARE = ("-semihosting-config", "enable=on,target=native", "-nographic", "-monitor", "none",
               "-serial", "none")
@@ -85,7 +136,16 @@ _RV_FLOAT = ("f",)
 _A64_FLOAT = ("f", "scvtf", "ucvtf")
 
 TARGETS: dict[str, Target] = {t.name: t for t in (
-    Target("generic", "portable C99 for any compiler and core; built and run on this machine", 0, _SCALAR_C),
+    Target("generic", "portable C99 for any compiler and core; built and run on this machine", 0, _GENERIC),
+    Target("x86-64-v3", "x86-64 with AVX2 and FMA (Haswell, Zen and later): 256-bit fused multiply-add "
+           "micro-kernels", 32, _AVX2, codegen_flags=("-mavx2", "-mfma"),
+           simd=(("double", _x86(256, "double")), ("float", _x86(256, "float"))),
+           cpu_features=("avx2", "fma")),
+    Target("x86-64-v4", "x86-64 with AVX-512 F/VL/DQ/BW (Skylake-X, Zen 4 and later): 512-bit micro-kernels",
+           64, _AVX512, codegen_flags=("-mavx512f", "-mavx512vl", "-mavx512dq", "-mavx512bw", "-mavx2",
+                                       "-mfma"),
+           simd=(("double", _x86(512, "double")), ("float", _x86(512, "float"))),
+           cpu_features=("avx512f", "avx512vl", "avx512dq", "avx512bw")),
     Target("host", "this machine, natively", 0, _SCALAR_C, packages=("gcc",)),
     Target("cortex-m4f", "Arm Cortex-M4 with single-precision FPU, bare metal on QEMU mps2-an386", 0, _SCALAR_C,
            cflags=("-mcpu=cortex-m4", "-mfpu=fpv4-sp-d16", "-mfloat-abi=hard", *_M_PROFILE), native=("float",),
@@ -123,6 +183,18 @@ TARGETS: dict[str, Target] = {t.name: t for t in (
 
 # The rows `verify --target all` and `report` go through: every row with a place to build and run.
 CHECK_ROWS = ("host", "cortex-m4f", "cortex-m7", "cortex-m0", "rv32imafc", "aarch64-linux", "rv64gc-linux")
+
+
+def runs_here(t: Target) -> bool:
+    """Whether this machine's CPU has every feature the target's kernels use (Linux /proc/cpuinfo)."""
+    if not t.cpu_features:
+        return True
+    try:
+        with open("/proc/cpuinfo", encoding="ascii", errors="replace") as fh:
+            flags = next((ln.split(":", 1)[1].split() for ln in fh if ln.startswith("flags")), [])
+    except OSError:
+        return False
+    return set(t.cpu_features) <= set(flags)
 
 
 def get(name: str) -> Target:
