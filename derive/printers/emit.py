@@ -14,7 +14,7 @@ from derive.lowering.counts import kernel_flops
 from derive.printers.cfixed import FixedCPrinter
 from derive.printers import firmware
 from derive.printers.cprinter import HELPER_ORDER
-from derive.printers.microkernel import packed_parts, printer_for
+from derive.printers.microkernel import header_notes, packed_parts, printer_for
 from derive.lowering.fixed import lower_fixed
 from derive.engine.invariants import make
 from derive.lowering.ir import Kernel
@@ -115,7 +115,7 @@ def emit_kernel(o: KernelOptions, choices: str | None = None) -> Emitted:
                                                        at_index=at_index, **packed_parts(cp), **common)
     h_text = env.get_template("c/kernel.h.j2").render(
         guard=f"{o.name.upper()}_H", factor_params=_params(public[0]["signature"]),
-        solve_params=_params(public[1]["signature"]), **common)
+        solve_params=_params(public[1]["signature"]), notes=header_notes(o, cp), **common)
 
     pp = PyPrinter(o.name)
     fns = [pp.function(r) for r in kernel.routines]

@@ -2,6 +2,8 @@
 micro-kernel whose tile, vectors and cache blocks come from the kernel's row of the target table."""
 from __future__ import annotations
 
+import textwrap
+
 from derive.options import KernelOptions
 from derive.printers.cprinter import CPrinter
 from derive.targets.storage import Layout, Scalar
@@ -111,6 +113,32 @@ def printer_for(o: KernelOptions, layout: Layout, scalar: Scalar) -> CPrinter:
         return CPrinter(o.name, layout, scalar, o.c_helpers)
     t = get(o.target)
     return PackedCPrinter(o.name, layout, scalar, t.blocks(o.scalar), t.vectors(o.scalar))
+
+
+def header_notes(o: KernelOptions, cp: CPrinter) -> list[str]:
+    """Lines for the header's comment: the levels, the recursion and, for a packing kernel, its workspace and
+    the trade-off it makes. Empty for a kernel without any of them."""
+    from derive.engine import operation
+    from derive.engine.invariants import make
+    out = []
+    if o.levels:
+        steps = ", then ".join(f"{b} ({make(operation.LU, w).label})" for b, w in o.levels)
+        out.append(f"Levels: each block of {o.block} is factored in blocks of {steps}, each of those by the "
+                   f"{o.inner_loop} loop.")
+    if o.panel == "recursive":
+        leaf = get(o.target).blocks(o.scalar).leaf
+        out.append(f"Panel: {'the whole matrix is' if o.block == 1 else 'each panel is'} factored by halving its "
+                   f"columns recursively ({o.inner_loop} on the halves) down to {leaf} columns.")
+    if isinstance(cp, PackedCPrinter) and cp.packed:
+        b, t = cp.blocking, cp.scalar.c_type
+        size = (b.mc * b.kc + b.kc * b.nc) * (8 if t == "double" else 4)
+        out += [f"Target {o.target}: matrix-matrix updates run through a packed GEMM ({b.mr} x {b.nr} register "
+                f"tile, cache blocks mc {b.mc}, kc {b.kc}, nc {b.nc}).",
+                f"Workspace: no allocation; the packing buffers are static arrays of {size} bytes in all, sized "
+                f"from the target row, so the ABI is the plain one and the stack use stays small. The price: calls "
+                f"must not overlap (not reentrant, not thread-safe) unless {o.name.upper()}_WORK is defined as "
+                f"`static _Thread_local` (C11) when compiling {o.name}.c, one set of buffers per thread."]
+    return [ln for note in out for ln in textwrap.wrap(note, 108)]
 
 
 def packed_parts(cp: CPrinter) -> dict:
