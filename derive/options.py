@@ -67,8 +67,8 @@ class KernelOptions:
             raise ValueError("the block sizes of the levels must decrease, each from 2 up")
         for _, words in self.levels:
             make(operation.LU, words)
-        if self.panel not in PANELS:
-            raise ValueError(f"panel must be one of {PANELS}")
+        if self.panel not in PANELS or (self.panel == "recursive" and self.lanes > 1):
+            raise ValueError(f"panel must be one of {PANELS}, and \"loop\" for a batched kernel")
         make(operation.LU, self.inner)
         make(operation.LOWER_SOLVE, self.solve_lower)
         make(operation.UPPER_SOLVE, self.solve_upper)

@@ -262,6 +262,9 @@ def _kernel(entry: dict, defaults: dict, i: int, spec_name: str, where: str,
         bad("solve_loop", f"{_show(solve)} is not allowed; allowed: {' or '.join(names)}, or a table "
                           f"{{ lower = ..., upper = ... }} of those")
 
+    if panel == "recursive" and lanes and lanes > 1:
+        bad("panel", f"'recursive' halves one matrix's panel; a batched kernel (lanes = {lanes}) steps all its "
+                     f"matrices together; allowed with lanes: \"loop\"")
     if len(problems) > start or inv is None or inner is None or lanes is None or target is None:
         return None
     levels = tuple((b, i.words) for b, i in zip(blocks[1:], inners[:-1]))

@@ -175,6 +175,7 @@ def test_unpivoted_on_dominant(n, pad):
     ('block = [64, 16]\ninner = ["crout"]', "inner"),        # one inner loop per level
     ('block = 64\ntarget = "pentium"', "target"),            # not a row of the target table
     ('block = 64\npanel = "halves"', "panel"),
+    ('panel = "recursive"\nlanes = 4', "panel"),             # the recursion is per matrix, lanes step together
 ])
 def test_spec_rejects_bad_large_settings(entry, key):
     with pytest.raises(SpecError) as e:
