@@ -37,10 +37,12 @@ tune-check: $(STAMP)
 	$(BIN)/python bench/tune_check.py --n 4,8 --scalar float --target host,cortex-m4f --sample 6
 
 check-generated:
-	@tmp=$$(mktemp -d) && $(GENPY) -m derive.cli generate $(SPEC) -o $$tmp >/dev/null && \
-	  for f in $$tmp/*; do cmp -s $$f generated/$$(basename $$f) || { echo "differs: generated/$$(basename $$f)"; rm -rf $$tmp; exit 1; }; done && \
-	  for f in generated/*.c generated/*.h generated/*.py generated/*.cmake generated/*.mk; do [ -e $$tmp/$$(basename $$f) ] || { echo "stale: $$f"; rm -rf $$tmp; exit 1; }; done; \
-	  rm -rf $$tmp
+	@tmp=$$(mktemp -d); trap 'rm -rf "$$tmp"' EXIT; \
+	  $(GENPY) -m derive.cli generate $(SPEC) -o $$tmp >/dev/null || { echo "generate failed on $(SPEC)"; exit 1; }; \
+	  ls $$tmp/*.c >/dev/null 2>&1 || { echo "generate wrote no kernels from $(SPEC)"; exit 1; }; \
+	  for f in $$tmp/*; do cmp -s $$f generated/$$(basename $$f) || { echo "differs: generated/$$(basename $$f)"; exit 1; }; done; \
+	  for f in generated/*.c generated/*.h generated/*.py generated/*.cmake generated/*.mk; do \
+	    [ -e $$tmp/$$(basename $$f) ] || { echo "stale: $$f"; exit 1; }; done
 
 regenerate:
 	rm -f generated/*.c generated/*.h generated/*.py generated/*.cmake generated/*.mk

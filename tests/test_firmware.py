@@ -24,7 +24,7 @@ OPTIONS = {o.name: o for o in load(SPEC)}
 STRICT = ["-std=c99", "-Wall", "-Wextra", "-Werror", "-pedantic", "-Wconversion", "-Wsign-conversion",
           "-Wdouble-promotion", "-Wcast-align", "-Wshadow", "-Wundef"]
 # one of each kind: inline and helper-function shaping, pivoted and not, blocked and not, both layouts and scalars
-SAMPLE = ("tide_right_piv_b1_scm", "tide_right_piv_b1_scm_fn", "tide_crout_piv_b4_dcm_fn", "tide_up_b4_srm",
+SAMPLE = ("tide_right_piv_b1_scm", "tide_ri_pv_b1_sfn", "tide_cr_pv_b4_dfn", "tide_up_b4_srm",
           "tide_left_piv_b4_srm", "tide_bord_b1_dcm")
 
 
