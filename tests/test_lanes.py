@@ -340,10 +340,46 @@ def test_lanes_kernels_compile_clean(tmp_path, cc):
     for o in (make_options("lr", "right-looking", pivoting="partial", lanes=8, scalar="float", layout="row-major"),
               make_options("lc", "crout", block=3, inner="left-looking", pivoting="partial", lanes=4, size=6)):
         write_atomically(tmp_path, list(emit_kernel(o).files))
-        res = subprocess.run([cc, "-std=c99", "-Wall", "-Wextra", "-Werror", "-pedantic", "-O2", "-c",
-                              str(tmp_path / f"{o.name}.c"), "-o", str(tmp_path / f"{o.name}.o")],
-                             capture_output=True, text=True)
-        assert res.returncode == 0, res.stderr
+        # the vector-extension spelling and the plain C one (what a compiler without vector extensions gets)
+        for extra in ([], [f"-D{o.name.upper()}_PLAIN_LANES"]):
+            res = subprocess.run([cc, "-std=c99", "-Wall", "-Wextra", "-Werror", "-pedantic", "-O2", *extra, "-c",
+                                  str(tmp_path / f"{o.name}.c"), "-o", str(tmp_path / f"{o.name}.o")],
+                                 capture_output=True, text=True)
+            assert res.returncode == 0, res.stderr
+
+
+@pytest.mark.parametrize("loop, block, size, scalar, w", [("right-looking", 1, None, "double", 4),
+                                                         ("crout", 2, None, "float", 8),
+                                                         ("left-looking", 1, 5, "double", 8)])
+def test_plain_lanes_match_vector_lanes_bit_for_bit(tmp_path, loop, block, size, scalar, w):
+    """The lane vectors (GCC/Clang vector extensions, chosen by the target row's lane_bytes) and the plain C
+    spelling do the same operations in the same order: factors, pivots, codes and solutions agree bit for bit,
+    whole groups and a partial last one alike, and both leave the unused lanes alone."""
+    from derive.check.build import OPT_FLAGS, build
+    from derive.printers.emit import emit_kernel
+    name = f"pl_{loop[:2]}_{scalar[0]}{w}"
+    o = make_options(name, loop, block, pivoting="partial", lanes=w, size=size, scalar=scalar)
+    c_text, h_text = (t for f, t in emit_kernel(o).files if not f.endswith(".py"))
+    assert f"{name.upper()}_VL {w if scalar == 'float' or w <= 4 else 4}" in c_text
+    vec = LaneKernel(build([(name, c_text, h_text)]), o)
+    plain = LaneKernel(build([(name, c_text, h_text)], OPT_FLAGS + (f"-D{name.upper()}_PLAIN_LANES",)), o)
+    rng = np.random.default_rng(5)
+    n = size or 7
+    mats = stack(rng, 2 * w + 3, n, vec.dtype)
+    mats[1, :, 0] = 0                     # an exact zero pivot in one lane
+    got = [k.factor(mats) for k in (vec, plain)]
+    for g in got:
+        assert g[0] == 0 and g[4], "bad code, or an unused lane or canary changed"
+    for x, y in zip(got[0][1:4], got[1][1:4]):
+        assert np.array_equal(x.view(np.uint8), y.view(np.uint8))
+    b = rng.standard_normal((len(mats), n)).astype(vec.dtype)
+    keep = got[0][1] == 0
+    sols = [k.solve(got[0][2][keep], got[0][3][keep], b[keep]) for k in (vec, plain)]
+    assert all(s[0] == 0 and s[2] for s in sols)
+    assert np.array_equal(sols[0][1].view(np.uint8), sols[1][1].view(np.uint8))
+    # and the pivots are LAPACK's (scipy's getrf), matrix by matrix
+    for m in np.flatnonzero(keep):
+        assert np.array_equal(got[0][3][m], getrf(mats[m])[1])
 
 
 def test_verify_checks_lanes_kernels_as_their_own_abi_kind():

@@ -11,6 +11,7 @@ from derive.printers import emit
 from derive.printers.clanes import LaneCPrinter
 from derive.printers.cprinter import HELPER_ORDER
 from derive.printers.pylanes import LanePyPrinter
+from derive.targets import table
 from derive.targets.storage import LAYOUTS, SCALARS
 
 
@@ -36,12 +37,16 @@ def emit_lanes(o: KernelOptions) -> emit.Emitted:
         entry = {"signature": cp.signature(r), "body": cp.body(r), "doc": r.doc}
         (public if r.role in ("factor", "solve") else internal).append(entry)
     helpers = [h for h in HELPER_ORDER if h in cp.needs]
+    # the target row says how wide a lane vector is; the kernel's lanes are whole chunks of it
+    vl = table.get(o.target).lane_vector(o.lanes, scalar.bytes)
+    iota = "{ " + ", ".join(str(e) for e in range(vl)) + " }"
     t = scalar.c_type
     n = "" if o.size else "int n, "
     pack_params = {"pack": f"int count, {n}const {t} *restrict mats, {t} *restrict a",
                    "unpack": f"int count, {n}const {t} *restrict a, {t} *restrict mats"}
     c_text = env.get_template("c/kernel_lanes.c.j2").render(
         helpers=helpers, internal=internal, public=public, at_index=layout.index, pack_params=pack_params,
+        vl=vl, iota=iota,
         **common)
     idx = layout.index.replace("(ld)", "n").replace("(i)", "i").replace("(j)", "j")
     h_text = env.get_template("c/kernel_lanes.h.j2").render(

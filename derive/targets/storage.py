@@ -23,6 +23,8 @@ class Scalar:
     unit_roundoff_exp: int   # u = 2**-p  (IEEE 754 binary64: 53, binary32: 24)
     c_min_normal: str = ""   # the smallest normal number, a C constant (LAPACK's SFMIN for this format)
     c_lift: str = ""         # a power of two that lifts any subnormal into the normal range, a C constant
+    bytes: int = 8           # storage size of one value
+    c_bits: str = "int64_t"  # the <stdint.h> integer of the same size (the lanes of a comparison's mask)
 
 
 LAYOUTS = {
@@ -34,5 +36,5 @@ LAYOUTS = {
 
 SCALARS = {
     "double": Scalar("double", "double", "0.0", "float64", 53, "0x1p-1022", "0x1p54"),
-    "float": Scalar("float", "float", "0.0f", "float32", 24, "0x1p-126f", "0x1p25f"),
+    "float": Scalar("float", "float", "0.0f", "float32", 24, "0x1p-126f", "0x1p25f", 4, "int32_t"),
 }

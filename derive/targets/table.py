@@ -66,6 +66,8 @@ class Target:
     codegen_flags: tuple[str, ...] = ()     # flags a kernel specialised for this target needs (ISA extensions)
     simd: tuple[tuple[str, Simd], ...] = ()  # scalar -> intrinsics of the micro-kernel; absent: portable C loops
     cpu_features: tuple[str, ...] = ()      # /proc/cpuinfo flags a machine needs to run such a kernel
+    lane_bytes: int = 0                     # batched (lanes) kernels: bytes of one lane vector (GCC/Clang vector
+                                            # extensions); 0: one lane at a time in plain C
     # -- where a kernel is built and run to be checked ---------------------------------------------------------
     cc: tuple[str, ...] = ("cc",)           # the compiler command (CC overrides it for the host rows)
     cflags: tuple[str, ...] = ()            # architecture, FPU and ABI
@@ -97,10 +99,20 @@ class Target:
             raise ValueError(f"target {self.name}: max_n must be >= 1 and paint_bytes a multiple of 4")
         if self.vector_bytes < 0:
             raise ValueError(f"target {self.name}: vector_bytes must be >= 0")
+        if self.lane_bytes < 0 or self.lane_bytes & (self.lane_bytes - 1):
+            raise ValueError(f"target {self.name}: lane_bytes must be 0 or a power of two")
         for scalar, v in self.simd:
             b = self.blocks(scalar)
             if v.lanes * (8 if scalar == "double" else 4) != self.vector_bytes or b.mr % v.lanes:
                 raise ValueError(f"target {self.name}: {scalar} vectors must fill vector_bytes and divide mr")
+
+    def lane_vector(self, lanes: int, scalar_bytes: int) -> int:
+        """Lanes per lane vector of a batched kernel of `lanes` interleaved matrices: the largest power of two
+        that divides `lanes` and fits lane_bytes (1: plain C, one lane at a time)."""
+        vl = 1
+        while lanes % (2 * vl) == 0 and 2 * vl * scalar_bytes <= self.lane_bytes:
+            vl *= 2
+        return vl
 
     def blocks(self, scalar: str) -> Blocking:
         return dict(self.blocking)[scalar]
@@ -136,17 +148,21 @@ _RV_FLOAT = ("f",)
 _A64_FLOAT = ("f", "scvtf", "ucvtf")
 
 TARGETS: dict[str, Target] = {t.name: t for t in (
-    Target("generic", "portable C99 for any compiler and core; built and run on this machine", 0, _GENERIC),
+    # lane vectors of 32 bytes: one AVX register on current x86, two NEON registers on Arm (common practice);
+    # a compiler without 256-bit registers splits each operation, a compiler without vector extensions gets
+    # the plain C spelling
+    Target("generic", "portable C99 for any compiler and core; built and run on this machine", 0, _GENERIC,
+           lane_bytes=32),
     Target("x86-64-v3", "x86-64 with AVX2 and FMA (Haswell, Zen and later): 256-bit fused multiply-add "
            "micro-kernels", 32, _AVX2, codegen_flags=("-mavx2", "-mfma"),
            simd=(("double", _x86(256, "double")), ("float", _x86(256, "float"))),
-           cpu_features=("avx2", "fma")),
+           cpu_features=("avx2", "fma"), lane_bytes=32),
     Target("x86-64-v4", "x86-64 with AVX-512 F/VL/DQ/BW (Skylake-X, Zen 4 and later): 512-bit micro-kernels",
            64, _AVX512, codegen_flags=("-mavx512f", "-mavx512vl", "-mavx512dq", "-mavx512bw", "-mavx2",
                                        "-mfma"),
            simd=(("double", _x86(512, "double")), ("float", _x86(512, "float"))),
-           cpu_features=("avx512f", "avx512vl", "avx512dq", "avx512bw")),
-    Target("host", "this machine, natively", 0, _SCALAR_C, packages=("gcc",)),
+           cpu_features=("avx512f", "avx512vl", "avx512dq", "avx512bw"), lane_bytes=64),
+    Target("host", "this machine, natively", 0, _SCALAR_C, packages=("gcc",), lane_bytes=32),
     Target("cortex-m4f", "Arm Cortex-M4 with single-precision FPU, bare metal on QEMU mps2-an386", 0, _SCALAR_C,
            cflags=("-mcpu=cortex-m4", "-mfpu=fpv4-sp-d16", "-mfloat-abi=hard", *_M_PROFILE), native=("float",),
            runner=("qemu-system-arm", "-M", "mps2-an386", *_QEMU_BARE, "-kernel", "{image}"), memory=_MPS2,
@@ -173,7 +189,7 @@ TARGETS: dict[str, Target] = {t.name: t for t in (
            packages=("gcc-riscv64-unknown-elf", "qemu-system-misc")),
     Target("aarch64-linux", "64-bit Arm Linux, static, on qemu-aarch64 (user mode)", 0, _SCALAR_C,
            cc=("aarch64-linux-gnu-gcc",), tools="aarch64-linux-gnu-", ldflags=("-static",),
-           runner=("qemu-aarch64", "{image}"), counting="plugin", float_mnemonics=_A64_FLOAT,
+           runner=("qemu-aarch64", "{image}"), counting="plugin", float_mnemonics=_A64_FLOAT, lane_bytes=16,
            packages=("gcc-aarch64-linux-gnu", "libc6-dev-arm64-cross", "qemu-user")),
     Target("rv64gc-linux", "64-bit RISC-V Linux, static, on qemu-riscv64 (user mode)", 0, _SCALAR_C,
            cc=("riscv64-linux-gnu-gcc",), tools="riscv64-linux-gnu-", ldflags=("-static",),
