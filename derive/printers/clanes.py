@@ -117,7 +117,7 @@ class LaneCPrinter(CPrinter):
         w = f"{self.prefix.upper()}_LANES"
         call = f"{s.routine}({', '.join(args)});"
         # whole groups pass the lane count as the constant W, so the compiler can specialise the lane loops for
-        # it; the last, partial group passes fewer, and its lanes past count are neither read nor written
+        # it; the last, partial group passes fewer, and its lanes past count keep their bits
         return [self.comment(f"{s.source}; g is the first matrix of the group, nl its lanes in use", indent),
                 f"{indent}for (g = 0; COUNT - g >= {w}; g += {w}) {{",
                 f"{indent}    const size_t nl = {w};",
