@@ -93,16 +93,16 @@ OPTIONS = {o.name: o for o in parse(KINDS, "large.toml")}
 _BUILT: dict = {}
 
 
-def kernel(name: str) -> CKernel:
+def kernel(name: str, extra: tuple[str, ...] = ()) -> CKernel:
     o = OPTIONS[name]
     t = get(o.target)
     if not runs_here(t):
         pytest.skip(f"{t.name} kernels need {', '.join(t.cpu_features)}, which this CPU lacks (compiled only)")
-    if name not in _BUILT:
+    if (name, extra) not in _BUILT:
         files = dict(emit_kernel(o).files)
-        mod = build([(name, files[f"{name}.c"], files[f"{name}.h"])], OPT_FLAGS + t.codegen_flags)
-        _BUILT[name] = CKernel(mod, o)
-    return _BUILT[name]
+        mod = build([(name, files[f"{name}.c"], files[f"{name}.h"])], OPT_FLAGS + t.codegen_flags + extra)
+        _BUILT[name, extra] = CKernel(mod, o)
+    return _BUILT[name, extra]
 
 
 def test_every_kind_packs():
@@ -135,9 +135,15 @@ CASES = [("lg_rl_v3", 300, 3), ("lg_rl_v3", 97, 0), ("lg_rec_v3", 515, 5), ("lg_
          ("lg_rl_v4", 515, 1)]
 
 
-@pytest.mark.parametrize("name,n,pad", CASES)
-def test_pivoted_matches_lapack(name, n, pad):
-    k = kernel(name)
+# The generic row's micro-kernel is written in GCC/Clang vector extensions with plain C loops for other
+# compilers; -U__GNUC__ makes gcc take the plain branch, so both are checked.
+PLAIN_C = ("-U__GNUC__",)
+CASES += [("lg_cr_gen", 193, 1, PLAIN_C)]
+
+
+@pytest.mark.parametrize("name,n,pad,extra", [c if len(c) == 4 else (*c, ()) for c in CASES])
+def test_pivoted_matches_lapack(name, n, pad, extra):
+    k = kernel(name, extra)
     rng = np.random.default_rng([n, pad, 9])
     a = rng.standard_normal((n, n)).astype(k.dtype)
     info, lu, ipiv, ok = k.factor(a, lda=n + pad)
@@ -181,6 +187,40 @@ def test_spec_rejects_bad_large_settings(entry, key):
     with pytest.raises(SpecError) as e:
         parse(f'[[kernel]]\nname = "x"\nloop = "crout"\npivoting = "partial"\n{entry}\n', "bad.toml")
     assert f"key '{key}'" in str(e.value) and "allowed" in str(e.value)
+
+
+def test_generic_micro_kernel_takes_both_branches_and_compiles_as_cplusplus(tmp_path):
+    # the extension branch is what gcc and clang compile, the plain loops what any other C99 compiler does
+    import shutil
+    import subprocess
+    o = OPTIONS["lg_cr_gen"]
+    files = dict(emit_kernel(o).files)
+    text = files["lg_cr_gen.c"]
+    assert "#if defined(__GNUC__)" in text and "__attribute__((vector_size(" in text and "#else" in text
+    for name, body in files.items():
+        (tmp_path / name).write_text(body)
+    for cxx in ("g++", "clang++"):
+        if shutil.which(cxx) is None:
+            pytest.skip(f"{cxx} not installed")
+        res = subprocess.run([cxx, "-x", "c++", "-std=c++11", "-Wall", "-Wextra", "-pedantic", "-Werror",
+                              "-fsyntax-only", str(tmp_path / "lg_cr_gen.c")], capture_output=True, text=True)
+        assert res.returncode == 0, res.stderr
+
+
+def test_generic_micro_kernel_fuses_under_iso_c(tmp_path):
+    # gcc's -std=c99 turns contraction off (GCC manual, -ffp-contract); the micro-kernel asks for it back, so
+    # an FMA machine gets fused multiply-adds from the portable source (x86-64 assembler checked)
+    import platform
+    import subprocess
+    if platform.machine() not in ("x86_64", "AMD64"):
+        pytest.skip("checks x86-64 assembler")
+    files = dict(emit_kernel(OPTIONS["lg_cr_gen"]).files)
+    for name, body in files.items():
+        (tmp_path / name).write_text(body)
+    res = subprocess.run(["gcc", "-std=c99", "-O3", "-mavx2", "-mfma", "-S", "-o", "-",
+                          str(tmp_path / "lg_cr_gen.c")], capture_output=True, text=True)
+    assert res.returncode == 0, res.stderr
+    assert "vfmadd" in res.stdout
 
 
 def test_targets_table_rows():

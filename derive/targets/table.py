@@ -65,6 +65,9 @@ class Target:
     blocking: tuple[tuple[str, Blocking], ...]   # scalar name -> register/cache blocks
     codegen_flags: tuple[str, ...] = ()     # flags a kernel specialised for this target needs (ISA extensions)
     simd: tuple[tuple[str, Simd], ...] = ()  # scalar -> intrinsics of the micro-kernel; absent: portable C loops
+    ext_vector_bytes: int = 0               # rows without simd: width of the GCC/Clang vector-extension type the
+                                            # portable micro-kernel uses when __GNUC__ is defined (plain C loops
+                                            # otherwise); 0: plain C loops only
     cpu_features: tuple[str, ...] = ()      # /proc/cpuinfo flags a machine needs to run such a kernel
     lane_bytes: int = 0                     # batched (lanes) kernels: bytes of one lane vector (GCC/Clang vector
                                             # extensions); 0: one lane at a time in plain C
@@ -101,6 +104,11 @@ class Target:
             raise ValueError(f"target {self.name}: vector_bytes must be >= 0")
         if self.lane_bytes < 0 or self.lane_bytes & (self.lane_bytes - 1):
             raise ValueError(f"target {self.name}: lane_bytes must be 0 or a power of two")
+        if self.ext_vector_bytes and (self.simd or any(
+                self.ext_vector_bytes % (8 if s == "double" else 4) or
+                b.mr % (self.ext_vector_bytes // (8 if s == "double" else 4)) for s, b in self.blocking)):
+            raise ValueError(f"target {self.name}: extension vectors are for rows without simd; they must hold "
+                             f"whole scalars and divide mr")
         for scalar, v in self.simd:
             b = self.blocks(scalar)
             if v.lanes * (8 if scalar == "double" else 4) != self.vector_bytes or b.mr % v.lanes:
@@ -150,9 +158,9 @@ _A64_FLOAT = ("f", "scvtf", "ucvtf")
 TARGETS: dict[str, Target] = {t.name: t for t in (
     # lane vectors of 32 bytes: one AVX register on current x86, two NEON registers on Arm (common practice);
     # a compiler without 256-bit registers splits each operation, a compiler without vector extensions gets
-    # the plain C spelling
+    # the plain C spelling. The packed micro-kernel's extension vectors are the same width, for the same reason.
     Target("generic", "portable C99 for any compiler and core; built and run on this machine", 0, _GENERIC,
-           lane_bytes=32),
+           lane_bytes=32, ext_vector_bytes=32),
     Target("x86-64-v3", "x86-64 with AVX2 and FMA (Haswell, Zen and later): 256-bit fused multiply-add "
            "micro-kernels", 32, _AVX2, codegen_flags=("-mavx2", "-mfma"),
            simd=(("double", _x86(256, "double")), ("float", _x86(256, "float"))),
