@@ -10,7 +10,7 @@ from derive.targets.storage import Layout, Scalar
 from derive.targets.table import Blocking, Simd, get
 
 # packed helpers -> the plain helpers they call (their diagonal blocks), emitted before them
-PACKED = {"gemm": ("pgemm", ()), "trsm_llu": ("ptrsm_llu", ("trsm_llu",)), "trsm_lun": ("ptrsm_lun", ("trsm_lun",)),
+PACKED = {"gemm": ("pgemm", ()), "trsm_llu": ("ptrsm_llu", ()), "trsm_lun": ("ptrsm_lun", ("trsm_lun",)),
           "trsm_run": ("ptrsm_run", ("trsm_run",)), "swaps": ("pswaps", ())}
 
 
@@ -121,15 +121,28 @@ class PackedCPrinter(CPrinter):
             out += ["    for (j = 0; j < nr; ++j) {"]
             out += [f"        {v.prefetch.format(p=f'&{at}(c, ldc, {i}, j)')};" for i in lines]
             out += ["    }"]
-        loads = ", ".join(f"a{r} = {v.load(f'pa + {r * v.lanes}')}" for r in range(nv))
-        out += ["    for (p = 0; p < k; ++p) {",
-                f"        const {v.vtype} {loads};"]
-        for j in range(b.nr):
-            # one broadcast of B a column, scoped so its register is free again for the next
-            out.append(f"        {{ const {v.vtype} bj = {v.bcast(f'pb[{j}]')};")
-            out += [f"          {accs[j][r]} = {v.fma(f'a{r}', 'bj', accs[j][r])};" for r in range(nv)]
-            out[-1] += " }"
-        out += [f"        pa += {b.mr};", f"        pb += {b.nr};", "    }"]
+        def step(u: int, ind: str) -> list[str]:
+            """The rank-1 update of the tile by column p + u of A's strip and row p + u of B's."""
+            loads = ", ".join(f"a{r} = {v.load(f'pa + {u * b.mr + r * v.lanes}')}" for r in range(nv))
+            lines = [f"{ind}const {v.vtype} {loads};"]
+            for j in range(b.nr):
+                # one broadcast of B a column, scoped so its register is free again for the next
+                lines.append(f"{ind}{{ const {v.vtype} bj = {v.bcast(f'pb[{u * b.nr + j}]')};")
+                lines += [f"{ind}  {accs[j][r]} = {v.fma(f'a{r}', 'bj', accs[j][r])};" for r in range(nv)]
+                lines[-1] += " }"
+            return lines
+
+        if b.unroll > 1:
+            # unrolled so the loop's own counting and branching take fewer of the core's issue slots per
+            # multiply-add; the order of the sum over p is unchanged
+            out += [f"    for (p = 0; p + {b.unroll} <= k; p += {b.unroll}) {{"]
+            for u in range(b.unroll):
+                out += ["        {", *step(u, " " * 12), "        }"]
+            out += [f"        pa += {b.unroll * b.mr};", f"        pb += {b.unroll * b.nr};", "    }",
+                    "    for (; p < k; ++p) {"]
+        else:
+            out += ["    for (p = 0; p < k; ++p) {"]
+        out += [*step(0, " " * 8), f"        pa += {b.mr};", f"        pb += {b.nr};", "    }"]
         if self.layout.leading == "rows":
             # column-major: a full tile's columns are contiguous, so it is subtracted vector by vector
             out += [f"    if (mr == {b.mr} && nr == {b.nr}) {{", f"        {t} *cj;"]
@@ -221,7 +234,8 @@ def header_notes(o: KernelOptions, cp: CPrinter) -> list[str]:
                    f"columns recursively ({o.inner_loop} on the halves) down to {leaf} columns.")
     if isinstance(cp, PackedCPrinter) and cp.packed:
         b, t = cp.blocking, cp.scalar.c_type
-        size = (b.mc * b.kc + b.kc * b.nc) * (8 if t == "double" else 4)
+        size = (b.mc * b.kc + b.kc * b.nc + ("ptrsm_llu" in cp.packed) * b.tri * b.tri_cols) * (
+            8 if t == "double" else 4)
         out += [f"Target {o.target}: matrix-matrix updates run through a packed GEMM ({b.mr} x {b.nr} register "
                 f"tile, cache blocks mc {b.mc}, kc {b.kc}, nc {b.nc}).",
                 f"Workspace: no allocation; the packing buffers are static arrays of {size} bytes in all, sized "
