@@ -46,6 +46,9 @@ tolower toupper setlocale localeconv static_assert alignas alignof noreturn comp
 PY_MODULES = frozenset(getattr(sys, "stdlib_module_names", ())) | {
     "numpy", "scipy", "cffi", "pycparser", "jinja2", "markupsafe", "pytest", "hypothesis", "derive", "luforge",
     "setuptools", "pip", "site", "sitecustomize", "usercustomize", "conftest", "__main__", "__init__"}
+# GCC/Clang keywords that open a line before a name in guarded code (`typedef T NAME_vec __attribute__((...))`):
+# the compiler's own, never a symbol a kernel defines
+GNU_KEYWORDS = frozenset({"__attribute__"})
 SIGNIFICANT = 31    # C99 5.2.4.1: external identifiers are guaranteed 31 significant characters
 
 _DEFINE = re.compile(r"^#\s*(?:define|ifndef|ifdef|undef)\s+([A-Za-z_]\w*)", re.M)
@@ -75,7 +78,7 @@ def symbols_of(name: str, files: tuple[tuple[str, str], ...]) -> Symbols:
         if fname.endswith((".c", ".h")):
             code = _COMMENT.sub(" ", text).replace("\\\n", " ")   # continued lines (a long #if) joined
             macros |= set(_DEFINE.findall(code))
-            functions |= {f for f in _FUNCTION.findall(code) if f not in C_KEYWORDS}
+            functions |= {f for f in _FUNCTION.findall(code) if f not in C_KEYWORDS | GNU_KEYWORDS}
             tokens |= set(_TOKEN.findall(code))
         elif fname.endswith(".py"):
             module = fname[:-3]
