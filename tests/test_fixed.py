@@ -26,7 +26,7 @@ def _entry(name, loop, block, scalar, layout, pivoting, size):
 def fixed_spec() -> str:
     """n = 6: every pivot-capable ordering pivoted and every ordering unpivoted, unblocked and blocked by 4 (steps
     of 4 and 2), double column-major and float row-major (and the other two pairings pivoted); n = 1, 16
-    (unrolled, the largest) and 17 (the step loop kept) for one ordering each."""
+    (the step loop kept in the factor, the one-column solve unrolled) and 17 for one ordering each."""
     out = []
     pairs = (("double", "column-major"), ("float", "row-major"))
     for loop in PIVOT_LOOPS:
@@ -238,14 +238,15 @@ def test_header_and_comments(fixed, tmp_path):
 @pytest.mark.parametrize("block", (1, 2, 3, 5))
 def test_every_ordering_and_block_lowers(loop, block):
     """Every ordering and block size is derivable at a fixed size: the lowering unrolls the same IR into
-    ceil(n / block) steps with constant ranges (n <= 16) and keeps the loop beyond."""
-    for n, pivoting in ((7, "none"), (16, "partial"), (20, "partial")):
+    ceil(n / block) steps with constant ranges (n <= MAX_EXTENT_FACTOR) and keeps the loop beyond."""
+    from derive.lowering.fixed import MAX_EXTENT_FACTOR
+    for n, pivoting in ((7, "none"), (MAX_EXTENT_FACTOR, "partial"), (16, "partial"), (20, "partial")):
         if pivoting == "partial" and loop not in PIVOT_LOOPS:
             continue
         o = make_options("f", loop, block, pivoting=pivoting, size=n)
         factor = lower_fixed(lower_kernel(o), o).routine("f")
         steps = [s for s in factor.body if isinstance(s, Step)]
-        if n <= 16:
+        if n <= MAX_EXTENT_FACTOR:
             assert len(steps) == -(-n // block) and not any(isinstance(s, Loop) for s in walk(factor.body))
         else:
             assert not steps and isinstance(factor.body[0], Loop)

@@ -86,6 +86,12 @@ def concrete_partition(text: str, env: dict[str, int]) -> str:
 # right-looking kernel, measured: 0.8 s at n = 8, 3.5 s at n = 16, 9 s at n = 32; crout block 4 at n = 32:
 # 4 s); past n = 16 the loop is kept, its extent a constant, and the kernel compiles in a fraction of a second.
 MAX_EXTENT = 16
+# A single matrix's factor pays for its straight-line steps in instruction fetch: at n = 16 the unrolled
+# right-looking factor is 33 KB of code, more than a 32 KB L1 instruction cache, and the kept step loop ran it in
+# 0.72-0.85x the time at n = 12 and 16 (gcc 12 -O3 -march=native, one core of an AMD EPYC, same-run ratios to
+# Eigen; bench/small.py). A batched factor spreads each step over W matrices and keeps the steps (unrolled was
+# 0.77-0.89x the time of the kept loop at n = 16 there), as does the one-column solve.
+MAX_EXTENT_FACTOR = 8
 
 
 def unroll(body: tuple, env: dict[str, int], max_extent: int = MAX_EXTENT) -> tuple:
@@ -157,7 +163,7 @@ def lower_fixed(kernel: Kernel, o: KernelOptions, choices: str = "select") -> Ke
         params = tuple(p for p in r.params if p.name != SIZE)
         extents = _fixed_extents(r, n)
         if r.role == "factor":
-            body = tuple(timed(s) for s in unroll(r.body, env))
+            body = tuple(timed(s) for s in unroll(r.body, env, MAX_EXTENT if o.lanes > 1 else MAX_EXTENT_FACTOR))
             out.append(dataclasses.replace(r, params=params, body=body, extents=extents))
             continue
         # the solve: the triangular solves inlined, then specialised once more for a single right-hand side
