@@ -17,7 +17,7 @@ from derive.printers.cprinter import HELPER_ORDER
 from derive.printers.microkernel import header_notes, packed_parts, printer_for
 from derive.lowering.fixed import lower_fixed
 from derive.engine.invariants import make
-from derive.lowering.ir import Kernel
+from derive.lowering.ir import Kernel, Step
 from derive.lowering.lower import invariant_text, lower_kernel
 from derive.options import KernelOptions
 from derive.printers.write import content_hash_line, plan, seal, write_set
@@ -99,7 +99,9 @@ def emit_kernel(o: KernelOptions, choices: str | None = None) -> Emitted:
                   digest=o.digest(), block=o.block, scalar=scalar, layout=layout, pivoted=o.pivoting != "none",
                   pivoting=o.pivoting, loop=o.loop, inner_loop=o.inner_loop, lower_loop=o.lower_loop,
                   upper_loop=o.upper_loop, invariant_doc=invariant_text(operation.LU, o.invariant, inv.label),
-                  size=o.size, constant_time=o.constant_time)
+                  size=o.size, constant_time=o.constant_time,
+                  # how many steps the fixed-size factor is unrolled into (0: its loop is kept)
+                  steps=sum(isinstance(st, Step) for r in kernel.routines if r.role == "factor" for st in r.body))
 
     cp = (FixedCPrinter(o.name, layout, scalar, o.size) if o.size is not None
           else printer_for(o, layout, scalar))
