@@ -155,6 +155,17 @@ class PackedCPrinter(CPrinter):
             out += [f"    {v.store(f'tile + {j * b.mr + r * v.lanes}', accs[j][r])};" for r in range(nv)]
         return out
 
+    def prefetch_lines(self, addr: str, indent: str) -> list[str]:
+        """A request for the cache line at addr in the row's spelling (intrinsics, or GCC/Clang's builtin in
+        guarded code); none for a row with neither."""
+        if self.simd is not None:
+            return [f"{indent}{self.simd.prefetch.format(p=addr)};"] if self.simd.prefetch else []
+        if self.ext_bytes:
+            # other compilers still evaluate the address, so what it is computed from is used either way
+            return ["#if defined(__GNUC__)", f"{indent}__builtin_prefetch({addr});", "#else", f"{indent}(void)({addr});",
+                    "#endif"]
+        return []
+
     def scalar_bytes(self) -> int:
         return 8 if self.scalar.name == "double" else 4
 
@@ -251,4 +262,5 @@ def packed_parts(cp: CPrinter) -> dict:
         return {"includes": [], "packed": None}
     return {"includes": [cp.simd.header] if cp.simd else [],
             "packed": {"b": cp.blocking, "head": cp.micro_head(), "micro": cp.micro_body(),
-                       "needs": sorted(cp.packed)}}
+                       "needs": sorted(cp.packed), "ahead": cp.prefetch_lines(f"&{cp.prefix.upper()}_AT(a, lda, p, jn)",
+                                                                             " " * 16)}}
