@@ -71,6 +71,15 @@ panel = "recursive"
 target = "x86-64-v3"
 scalar = "float"
 
+[[kernel]]
+name = "lu_v3_rec_s"
+loop = "right-looking"
+block = 4096
+inner = "right-looking"
+panel = "recursive"
+target = "x86-64-v3"
+scalar = "float"
+
 # portable C: the compiler vectorizes the micro-kernel (-O3 -march=native)
 [[kernel]]
 name = "lu_gen_d"
