@@ -5,7 +5,6 @@ from __future__ import annotations
 import argparse
 import ctypes
 import os
-import platform
 import subprocess
 import sys
 import tempfile
@@ -21,6 +20,7 @@ sys.path.insert(0, str(ROOT))
 from derive.printers.emit import emit_kernel, write_atomically  # noqa: E402
 from derive.check.build import load_python  # noqa: E402
 from derive.options import make_options  # noqa: E402
+from derive.tune.cache import machine  # noqa: E402
 
 SIZES = (4, 6, 8, 12, 16)
 SCALARS = ("double", "float")
@@ -103,16 +103,6 @@ def build(tmp: Path, loop: str):
     return ctypes.CDLL(str(lib)), kernels
 
 
-def cpu_name() -> str:
-    try:
-        for line in Path("/proc/cpuinfo").read_text().splitlines():
-            if line.startswith("model name"):
-                return line.split(":", 1)[1].strip()
-    except OSError:
-        pass
-    return platform.processor() or platform.machine()
-
-
 def ptr(x: np.ndarray):
     return ctypes.c_void_p(x.ctypes.data)
 
@@ -148,7 +138,7 @@ def main() -> int:
     if hasattr(os, "sched_setaffinity") and CPU in os.sched_getaffinity(0):
         os.sched_setaffinity(0, {CPU})
     pinned = sorted(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else "?"
-    print(f"batched pivoted LU, time per matrix; machine: {cpu_name()}, {os.cpu_count()} CPUs, "
+    print(f"batched pivoted LU, time per matrix; machine: {machine()}, {os.cpu_count()} CPUs, "
           f"{cc}, {' '.join(CFLAGS)}; pinned to CPU {pinned}; medians of {args.rounds} interleaved rounds")
     print(f"luforge: {args.loop} loop, block 1, W matrices interleaved, n an argument or fixed (size); Eigen 3 "
           "PartialPivLU<Matrix<T,N,N>>;"

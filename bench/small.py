@@ -12,7 +12,6 @@ from __future__ import annotations
 import argparse
 import os
 import platform
-import re
 import shutil
 import subprocess
 import sys
@@ -23,6 +22,7 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))
 
 from derive.options import make_options  # noqa: E402
+from derive.tune.cache import machine  # noqa: E402
 from derive.printers.emit import emit_kernel  # noqa: E402
 
 SIZES = (4, 6, 8, 12, 16)
@@ -88,16 +88,6 @@ def run(exe: Path) -> tuple[dict, str]:
     return results, core
 
 
-def cpu_name() -> str:
-    try:
-        for line in Path("/proc/cpuinfo").read_text().splitlines():
-            if line.startswith("model name"):
-                return line.split(":", 1)[1].strip()
-    except OSError:
-        pass
-    return platform.processor() or platform.machine()
-
-
 def table(results: dict, sizes) -> str:
     rows = []
     for scalar, _ in SCALARS:
@@ -151,7 +141,7 @@ def main() -> int:
     args = ap.parse_args()
     sizes = tuple(int(s) for s in args.sizes.split(","))
     flag_sets = tuple(tuple(f.split()) for f in args.flags) if args.flags else FLAG_SETS
-    print(f"machine: {cpu_name()}; {platform.system()} {platform.release()}; "
+    print(f"machine: {machine()}; {platform.system()} {platform.release()}; "
           f"{subprocess.run(['gcc', '--version'], capture_output=True, text=True).stdout.splitlines()[0]}")
     all_results = {}
     with tempfile.TemporaryDirectory(prefix="luforge-bench-small-") as tmp:

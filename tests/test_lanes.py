@@ -12,7 +12,7 @@ from conftest import PIVOT_LOOPS, SHORT, build_catalogue
 from derive.check.accuracy import apply_swaps, componentwise_ratio, factor_ratio, solve_ratio
 from derive.check.harness import LaneKernel, interleave_index
 from derive.lowering import lanes as ln
-from derive.lowering.ir import FactorCall, Gemm, Loop, PivotSearch, RowSwaps, Scale, Trsm, walk
+from derive.lowering.ir import FactorCall, Gemm, Loop, PivotSearch, RowSwaps, Scale, Step, Trsm, walk
 from derive.lowering.lower import lower_kernel
 from derive.options import make_options
 from derive.spec import SpecError, parse
@@ -264,17 +264,31 @@ def test_lane_kernel_is_the_scalar_ir_over_lanes():
 def test_fixed_size_lanes_are_the_fixed_kernel_over_lanes():
     """With `size`, the lanes lowering takes the fixed-size lowering's steps (constant index ranges, pivoting
     already by selects) and wraps each statement in them: step for step the same, no scalar statement left."""
-    from derive.printers.emit import lower_options
+    from derive.printers.emit_lanes import lower_batched
     for loop in PIVOT_LOOPS:
         o = make_options("k", loop, block=2, pivoting="partial", size=5, lanes=4)
-        fixed = lower_options(o)
-        batched = ln.lower_lanes(fixed, o)
+        fixed, batched = lower_batched(o)
         group, single = batched.routine("k_group"), fixed.routine("k")
         assert [type(s) for s in walk(group.body)] == [
             {Gemm: ln.OverLanes, Trsm: ln.OverLanes, Scale: ln.OverLanes, PivotSearch: ln.SelectPivot,
              RowSwaps: ln.SelectSwaps, FactorCall: ln.LaneFactorCall}.get(type(s), type(s)) for s in walk(single.body)]
         assert all(not isinstance(s, (Gemm, Trsm, Scale, PivotSearch, RowSwaps)) for r in batched.routines
                    for s in walk(r.body))
+
+
+def test_batched_factor_keeps_its_steps_where_one_matrix_keeps_the_loop():
+    """At n = 12 a single matrix's factor keeps its step loop (its unrolled code outgrows an instruction cache)
+    while a batched one is unrolled into its 12 steps (each step's code serves W matrices): both thresholds are
+    the lowering's, handed over by the emitter, not a branch inside it."""
+    from derive.lowering.fixed import MAX_EXTENT, MAX_EXTENT_FACTOR
+    from derive.printers.emit import lower_options
+    from derive.printers.emit_lanes import lower_batched
+    assert MAX_EXTENT_FACTOR < 12 <= MAX_EXTENT
+    o = make_options("k", "right-looking", pivoting="partial", size=12, lanes=4)
+    single = lower_options(o).routine("k")
+    assert isinstance(single.body[0], Loop) and not any(isinstance(s, Step) for s in single.body)
+    scalar, _ = lower_batched(o)
+    assert [s.value for s in scalar.routine("k").body if isinstance(s, Step)] == list(range(12))
 
 
 @pytest.mark.parametrize("value, says", [(0, "from 1"), (65, "to 64"), (True, "integer"), ('"8"', "integer")])

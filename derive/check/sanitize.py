@@ -17,6 +17,22 @@ SANITIZE_FLAGS = ("-std=c99", "-g", "-O1", "-fno-omit-frame-pointer", "-fsanitiz
 SANITIZE_UP_TO = 300
 
 
+def driver_prologue(name: str) -> str:
+    """What every sanitizer driver (single-matrix and batched) starts with: its includes and a deterministic
+    generator of test entries."""
+    return f"""#include <stdio.h>
+#include <stdlib.h>
+#include "{name}.h"
+
+static unsigned long long state = 88172645463325252ULL;
+static double uniform(void)   /* xorshift64: any deterministic stream will do */
+{{
+    state ^= state << 13; state ^= state >> 7; state ^= state << 17;
+    return (double)(state >> 11) / 9007199254740992.0 * 2.0 - 1.0;
+}}
+"""
+
+
 def general_driver(o: KernelOptions, sizes: list[int]) -> str:
     """A C driver for the general ABI: each n gets malloc'd buffers of exactly lda*n (and n, ldb*nrhs) elements,
     so any access outside them lands in an ASan red zone; a column-dominant matrix keeps every code 0."""
@@ -30,17 +46,7 @@ def general_driver(o: KernelOptions, sizes: list[int]) -> str:
     fixed = getattr(o, "size", None) is not None     # the fixed-size ABI has no n argument
     n_arg = "" if fixed else "n, "
     shown = [o.size] if fixed else [n for n in sizes if n <= SANITIZE_UP_TO]
-    return f"""#include <stdio.h>
-#include <stdlib.h>
-#include "{o.name}.h"
-
-static unsigned long long state = 88172645463325252ULL;
-static double uniform(void)   /* xorshift64: any deterministic stream will do */
-{{
-    state ^= state << 13; state ^= state >> 7; state ^= state << 17;
-    return (double)(state >> 11) / 9007199254740992.0 * 2.0 - 1.0;
-}}
-
+    return f"""{driver_prologue(o.name)}
 int main(void)
 {{
     static const int sizes[] = {{{", ".join(str(n) for n in shown) or "0"}}};

@@ -6,6 +6,7 @@ import numpy as np
 
 from derive.check.accuracy import componentwise_ratio, factor_ratio, solve_ratio
 from derive.check.harness import LaneKernel
+from derive.check.sanitize import driver_prologue
 from derive.options import KernelOptions
 from derive.targets.storage import LAYOUTS, SCALARS
 
@@ -77,17 +78,7 @@ def lanes_driver(o: KernelOptions, sizes: list[int]) -> str:
     fixed = getattr(o, "size", None) is not None
     n_arg = "" if fixed else "n, "
     shown = sorted(set([o.size] if fixed else [n for n in sizes if n <= 17]))
-    return f"""#include <stdio.h>
-#include <stdlib.h>
-#include "{o.name}.h"
-
-static unsigned long long state = 88172645463325252ULL;
-static double uniform(void)   /* xorshift64: any deterministic stream will do */
-{{
-    state ^= state << 13; state ^= state >> 7; state ^= state << 17;
-    return (double)(state >> 11) / 9007199254740992.0 * 2.0 - 1.0;
-}}
-
+    return f"""{driver_prologue(o.name)}
 int main(void)
 {{
     static const int sizes[] = {{{", ".join(str(n) for n in shown) or "0"}}};

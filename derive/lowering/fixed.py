@@ -7,7 +7,7 @@ import ast
 import dataclasses
 import re
 
-from derive.lowering.ir import (Block, Call, FactorCall, Gemm, Kernel, Lin, Loop, OneColumn, PivotCheck, PivotSearch,
+from derive.lowering.ir import (Block, Call, Gemm, Kernel, Lin, Loop, OneColumn, PivotSearch,
                                 RowSwaps, Routine, Scale, Span, Step, Trsm)
 from derive.options import KernelOptions
 
@@ -144,7 +144,8 @@ def _fixed_extents(r: Routine, n: int) -> tuple[tuple[str, str], ...]:
     return tuple((m, ",".join(str(n) if e == SIZE else e for e in ext.split(","))) for m, ext in r.extents)
 
 
-def lower_fixed(kernel: Kernel, o: KernelOptions, choices: str = "select") -> Kernel:
+def lower_fixed(kernel: Kernel, o: KernelOptions, choices: str = "select",
+                factor_steps: int = MAX_EXTENT_FACTOR) -> Kernel:
     """The kernel of `o` (lowered for n as an argument) specialised for n = o.size. choices="branch" keeps the
     pivoting's branches (only `make bench` asks for it, to show what constant time costs)."""
     n = o.size
@@ -163,7 +164,7 @@ def lower_fixed(kernel: Kernel, o: KernelOptions, choices: str = "select") -> Ke
         params = tuple(p for p in r.params if p.name != SIZE)
         extents = _fixed_extents(r, n)
         if r.role == "factor":
-            body = tuple(timed(s) for s in unroll(r.body, env, MAX_EXTENT if o.lanes > 1 else MAX_EXTENT_FACTOR))
+            body = tuple(timed(s) for s in unroll(r.body, env, factor_steps))
             out.append(dataclasses.replace(r, params=params, body=body, extents=extents))
             continue
         # the solve: the triangular solves inlined, then specialised once more for a single right-hand side

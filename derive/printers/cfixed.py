@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import re
 
-from derive.lowering.ir import Block, Lin, OneColumn, PivotCheck, PivotSearch, RowSwaps, Routine, Scale, Step, Trsm
+from derive.lowering.ir import Block, OneColumn, PivotCheck, PivotSearch, RowSwaps, Routine, Scale, Trsm
 from derive.printers.cprinter import CPrinter
 from derive.targets.storage import Layout, Scalar
 
@@ -117,14 +117,6 @@ class FixedCPrinter(CPrinter):
         for t in s.body:
             out += self.visit(t, indent + "    ")
         return out + [f"{indent}}}"]
-
-    def visit_Step(self, s: Step, indent: str) -> list[str]:
-        size = f", kb = {s.size}" if s.size > 1 else ""
-        out = [self.comment(f"step {s.var} = {s.value}{size} (of {s.count}); loop invariant, {s.invariant}", indent),
-               self.comment(f"partition at this step: {s.partition}", indent)]
-        for t in s.body:
-            out += self.visit(t, indent)
-        return out
 
     def visit_OneColumn(self, s: OneColumn, indent: str) -> list[str]:
         out = [self.comment(s.source, indent), f"{indent}if ({self.names.get(s.var, s.var)} == 1) {{"]

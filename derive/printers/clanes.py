@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import re
 
-from derive.lowering.ir import Call, Kernel, Lin, Loop, Param, Routine, Step
+from derive.lowering.ir import Call, Kernel, Lin, Loop, Param, Routine
 from derive.lowering.lanes import Groups, LaneFactorCall, OverLanes, SelectPivot, SelectSwaps
 from derive.printers.cprinter import CPrinter
 from derive.targets.storage import Layout, Scalar
@@ -73,15 +73,6 @@ class LaneCPrinter(CPrinter):
                 f"{indent}        if (r[l] != 0 && info[l] == 0) info[l] = r[l] + (int)({r0});",
                 f"{indent}    }}",
                 f"{indent}}}"]
-
-    def visit_Step(self, s: Step, indent: str) -> list[str]:
-        """One step of a loop unrolled for a fixed size: its index ranges are constants."""
-        size = f", kb = {s.size}" if s.size > 1 else ""
-        out = [self.comment(f"step {s.var} = {s.value}{size} (of {s.count}); loop invariant, {s.invariant}", indent),
-               self.comment(f"partition at this step: {s.partition}", indent)]
-        for t in s.body:
-            out += self.visit(t, indent)
-        return out
 
     def n_text(self, r: Routine) -> str:
         """n in a public routine: the argument's local copy, or the constant of a fixed-size kernel."""

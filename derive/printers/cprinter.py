@@ -5,7 +5,7 @@ from __future__ import annotations
 import re
 
 from derive.lowering.ir import (Block, Call, FactorCall, Gemm, Leaf, Lin, Loop, Param, PivotCheck, PivotSearch, RowSwaps, Routine, Scale,
-                 Span, Trsm)
+                 Span, Step, Trsm)
 from derive.lowering.printing import show_lin
 from derive.printers.cloops import InlineLoops, joined_exchange
 from derive.targets.storage import Layout, Scalar
@@ -105,6 +105,16 @@ class CPrinter:
 
     def comment(self, text: str, indent: str) -> str:
         return f"{indent}/* {text.replace('*/', '* /')} */"
+
+    def visit_Step(self, s: Step, indent: str) -> list[str]:
+        """One step of a loop unrolled for a fixed size (fixed-size and batched kernels): constant index ranges,
+        opened by the loop invariant and the step's concrete partition."""
+        size = f", kb = {s.size}" if s.size > 1 else ""
+        out = [self.comment(f"step {s.var} = {s.value}{size} (of {s.count}); loop invariant, {s.invariant}", indent),
+               self.comment(f"partition at this step: {s.partition}", indent)]
+        for t in s.body:
+            out += self.visit(t, indent)
+        return out
 
     def visit_Loop(self, s: Loop, indent: str) -> list[str]:
         k, e = s.var, self.x(s.extent)

@@ -15,7 +15,7 @@ from derive.printers.cfixed import FixedCPrinter
 from derive.printers import firmware
 from derive.printers.cprinter import HELPER_ORDER
 from derive.printers.microkernel import header_notes, packed_parts, printer_for
-from derive.lowering.fixed import lower_fixed
+from derive.lowering.fixed import MAX_EXTENT_FACTOR, lower_fixed
 from derive.engine.invariants import make
 from derive.lowering.ir import Kernel, Step
 from derive.lowering.lower import invariant_text, lower_kernel
@@ -79,11 +79,12 @@ def _banner(lines: list[str]):
     return render
 
 
-def lower_options(o: KernelOptions, choices: str | None = None) -> Kernel:
-    """The kernel's routines: lowered for n as an argument, then specialised for a fixed n if it has one."""
+def lower_options(o: KernelOptions, choices: str | None = None, factor_steps: int = MAX_EXTENT_FACTOR) -> Kernel:
+    """The kernel's routines: lowered for n as an argument, then specialised for a fixed n if it has one (its
+    factor unrolled into steps up to n = factor_steps)."""
     kernel = lower_kernel(o)
     choices = choices or ("select" if o.constant_time else "branch")
-    return lower_fixed(kernel, o, choices) if o.size is not None else kernel
+    return lower_fixed(kernel, o, choices, factor_steps) if o.size is not None else kernel
 
 
 def emit_kernel(o: KernelOptions, choices: str | None = None) -> Emitted:

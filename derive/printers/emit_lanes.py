@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from derive.engine import operation
 from derive.engine.invariants import make
+from derive.lowering.fixed import MAX_EXTENT
 from derive.lowering.lanes import lower_lanes
 from derive.lowering.lower import invariant_text
 from derive.options import KernelOptions
@@ -15,11 +16,17 @@ from derive.targets import table
 from derive.targets.storage import LAYOUTS, SCALARS
 
 
+def lower_batched(o: KernelOptions):
+    """(the single-matrix kernel the lanes lowering takes, the batched kernel). With a fixed size the factor
+    keeps its steps up to n = 16: each step's code serves W matrices (see fixed.py)."""
+    scalar_kernel = emit.lower_options(o, factor_steps=MAX_EXTENT)
+    return scalar_kernel, lower_lanes(scalar_kernel, o)
+
+
 def emit_lanes(o: KernelOptions) -> emit.Emitted:
     # the single-matrix kernel, specialised for a fixed size if there is one (pivoting then by selects), is
     # what the lanes lowering takes
-    scalar_kernel = emit.lower_options(o)
-    kernel = lower_lanes(scalar_kernel, o)
+    scalar_kernel, kernel = lower_batched(o)
     env = emit._environment()
     layout, scalar = LAYOUTS[o.layout], SCALARS[o.scalar]
     lines = emit.banner_lines(o, scalar_kernel)

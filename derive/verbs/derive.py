@@ -75,12 +75,13 @@ def run(args) -> int:
         from derive.lowering.printing import dump_routine
         from derive.printers.emit import lower_options     # a fixed-size kernel: its IR after the size lowering
         print(f"\nloop IR of kernel {o.name}, every routine{' (n = ' + str(o.size) + ')' if o.size else ''}:")
-        kernel = lower_options(o)
         if o.lanes > 1:     # a batched kernel: the same IR lowered over its lanes
-            from derive.lowering.lanes import dump_lane_routine, lower_lanes
-            for r in lower_lanes(kernel, o).routines:
+            from derive.lowering.lanes import dump_lane_routine
+            from derive.printers.emit_lanes import lower_batched
+            for r in lower_batched(o)[1].routines:
                 print(dump_lane_routine(r))
             return 0
+        kernel = lower_options(o)
         for r in kernel.routines:
             print(dump_routine(r))
     return 0
