@@ -156,7 +156,7 @@ def _main_calling_selftests() -> str:
 def test_make_fragment_builds_and_the_selftests_pass(tmp_path):
     need("make")
     need("cc")
-    out = _generate(tmp_path)
+    _generate(tmp_path)
     app = tmp_path / "app"
     app.mkdir()
     (app / "main.c").write_text(_main_calling_selftests())

@@ -154,3 +154,16 @@ def exact_factors(n, dtype, rng, pivoted: bool):
         at[k], at[p] = at[p], at[k]
         where[at[k]], where[at[p]] = k, p
     return a.astype(dtype), lu.astype(dtype), ipiv
+
+
+def zero_columns(a: np.ndarray, imat: int) -> tuple[np.ndarray, int]:
+    """dchkge's singular types 5-7: a zero column at IZERO (5, 6) or zero columns from IZERO on (7); returns
+    the matrix and IZERO, the code a factorization must report."""
+    # LAPACK TESTING/LIN/dchkge.f: IZERO = 1, N, or N/2+1; type 7 zeroes columns IZERO..N
+    n = a.shape[0]
+    izero = 1 if imat == 5 else n if imat == 6 else n // 2 + 1
+    if imat < 7:
+        a[:, izero - 1] = 0
+    else:
+        a[:, izero - 1:] = 0
+    return a, izero

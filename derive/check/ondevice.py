@@ -10,9 +10,8 @@ from derive import __version__
 from derive.check import cross
 from derive.check.accuracy import column_dominant, componentwise_ratio, factor_ratio, solve_ratio
 from derive.check.harness import GUARD, Placed, place
-from derive.check.matrices import exact_factors, lapack_ge_matrix
+from derive.check.matrices import exact_factors, lapack_ge_matrix, zero_columns
 from derive.check.verify import THRESHOLD, sizes_for
-from derive.check.verify import _zero_columns as zero_columns
 from derive.options import KernelOptions
 from derive.printers.emit import emit_kernel
 from derive.targets.storage import LAYOUTS, SCALARS

@@ -14,7 +14,7 @@ import numpy as np
 from derive.check.accuracy import column_dominant, componentwise_ratio, factor_ratio, solve_ratio
 from derive.check.build import OPT_FLAGS, build, load_python
 from derive.check.harness import CKernel
-from derive.check.matrices import exact_factors, lapack_ge_matrix
+from derive.check.matrices import exact_factors, lapack_ge_matrix, zero_columns
 from derive.options import KernelOptions
 from derive.targets.table import get as get_target, runs_here
 
@@ -160,7 +160,7 @@ def check_fixed(s: Subject, budget: Budget, rng) -> Row:
 
 
 def check_matrices(s: Subject, budget: Budget, rng, row: Row) -> Row:
-    o, ck = s.options, s.c
+    ck = s.c
     dtype, pivoted = ck.dtype, ck.pivoted
 
     def run(n: int, a: np.ndarray, expected_info: int, judge: str, exact=None) -> None:
@@ -223,7 +223,7 @@ def check_matrices(s: Subject, budget: Budget, rng, row: Row) -> Row:
             elif imat in (5, 6, 7):
                 # LAPACK's zero-column placement on a dominant matrix: the zero column stays zero through every
                 # update, so an unpivoted kernel meets an exactly zero pivot there first (dchkge's IZERO)
-                a, expected = _zero_columns(column_dominant(n, dtype, rng), imat)
+                a, expected = zero_columns(column_dominant(n, dtype, rng), imat)
             else:
                 continue     # the other GE types need pivoting; an unpivoted kernel promises nothing on them
             run(n, a, expected, "lapack" if pivoted else "code")
@@ -244,17 +244,6 @@ def finish(row: Row) -> Row:
 def _lapack_sizes(sizes: list[int]) -> list[int]:
     # LAPACK TESTING/dtest.in runs N = 0, 1, 2, 3, 5, 10, 50; here the kernel's own sizes up to 50
     return [n for n in sizes if n <= 50]
-
-
-def _zero_columns(a: np.ndarray, imat: int) -> tuple[np.ndarray, int]:
-    # LAPACK TESTING/LIN/dchkge.f: IZERO = 1, N, or N/2+1; type 7 zeroes columns IZERO..N
-    n = a.shape[0]
-    izero = 1 if imat == 5 else n if imat == 6 else n // 2 + 1
-    if imat < 7:
-        a[:, izero - 1] = 0
-    else:
-        a[:, izero - 1:] = 0
-    return a, izero
 
 
 @dataclass(frozen=True)

@@ -47,7 +47,7 @@ class InlineLoops:
         gets its test at the bottom: compilers optimising for size do not copy a loop's test to its end, and the
         test at the top costs a compare and a branch more on every pass. `own_scope`: the loop is the only one
         of its variable in the enclosing block, so its counter may be declared there without braces."""
-        lo, hi = self.cp.x(span.lo), self.cp.x(span.hi)
+        lo = self.cp.x(span.lo)
         inner = [f"{indent}    {ln}" for ln in body]
         if self.nonempty(span, outer):
             lines = [f"size_t {var} = {lo};", "do {", *(f"    {ln}" for ln in body), f"    ++{var};",
