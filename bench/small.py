@@ -5,7 +5,7 @@ Builds bench/small_driver.cpp with luforge's fixed-size kernels (constant-time a
 costs, branching), its runtime-n kernel, and bench/small_textbook.c, all with the same flags; runs it pinned to
 one CPU (taskset -c 1) with OPENBLAS_CORETYPE and OPENBLAS_L2_SIZE unset for this command only; prints the
 medians and the time ratios, and writes bench/small.png. Options: --flags "-O2" (default: both -O3 -march=native
-and -O2), --sizes 4,8, --out DIR.
+and -O2), --sizes 4,8, --out DIR, --cpu 1.
 """
 from __future__ import annotations
 
@@ -69,10 +69,10 @@ def build(where: Path, names: list[str], flags: tuple[str, ...]) -> Path:
     return exe
 
 
-def run(exe: Path) -> tuple[dict, str]:
+def run(exe: Path, cpu: int = 1) -> tuple[dict, str]:
     env = {k: v for k, v in os.environ.items() if k not in ("OPENBLAS_CORETYPE", "OPENBLAS_L2_SIZE")}
     env["OPENBLAS_NUM_THREADS"] = "1"
-    cmd = ([shutil.which("taskset"), "-c", "1"] if shutil.which("taskset") else []) + [str(exe)]
+    cmd = ([shutil.which("taskset"), "-c", str(cpu)] if shutil.which("taskset") else []) + [str(exe)]
     out = subprocess.run(cmd, env=env, capture_output=True, text=True)
     results, core = {}, "?"
     for line in out.stdout.splitlines():
@@ -138,6 +138,7 @@ def main() -> int:
     ap.add_argument("--sizes", default=",".join(map(str, SIZES)))
     ap.add_argument("--flags", action="append", help="compiler flags for every contender (repeatable)")
     ap.add_argument("--out", default=str(HERE / "small.png"))
+    ap.add_argument("--cpu", type=int, default=1, help="the CPU the driver is pinned to (default 1)")
     args = ap.parse_args()
     sizes = tuple(int(s) for s in args.sizes.split(","))
     flag_sets = tuple(tuple(f.split()) for f in args.flags) if args.flags else FLAG_SETS
@@ -149,10 +150,10 @@ def main() -> int:
         names = write_kernels(where, sizes)
         for flags in flag_sets:
             exe = build(where, names, flags)
-            results, core = run(exe)
+            results, core = run(exe, args.cpu)
             key = " ".join(flags)
             all_results[key] = results
-            print(f"\n## {key} (pinned to CPU 1; OpenBLAS core {core}, one thread; medians of interleaved "
+            print(f"\n## {key} (pinned to CPU {args.cpu}; OpenBLAS core {core}, one thread; medians of interleaved "
                   f"repetitions; every contender copies its input; all checked against getrf/getrs first)\n")
             print(table(results, sizes))
     plot(all_results, sizes, Path(args.out))
