@@ -87,13 +87,6 @@ class FixedCPrinter(CPrinter):
             return f"rhs[{i}]"      # its only column
         return f"{self.prefix.upper()}_AT({matrix}, {self.ld(matrix)}, {i}, {j})"
 
-    def rows_of(self, matrix: str) -> int | None:
-        """The number of rows of `matrix` in the routine printed, when it is a constant."""
-        for m, ext in getattr(self.routine, "extents", ()):
-            if m == matrix:
-                return _int(ext.split(",")[0])
-        return None
-
     def view(self, b: Block) -> View:
         return View(self, b, self.transposed)
 
@@ -285,7 +278,7 @@ class FixedCPrinter(CPrinter):
         ]
         # the old diagonal entry goes to row q by a select over the rows below, so no store waits for q's address
         below = for_("i", "1", m, [f"e.f = {col('i')};",
-                                   f"e.u ^= (e.u ^ tb) & (({U})0 - ({U})(({U})i == ({U})q));",
+                                   f"e.u ^= (e.u ^ tb) & (({U})0 - ({U})(i == q));",
                                    f"{col('i')} = e.f / s;"], "")
         if not below:
             lines.append("(void)tb;")
@@ -297,20 +290,6 @@ class FixedCPrinter(CPrinter):
         return [self.comment(f"partial pivoting on column {c0}, by selects (the same instructions whatever the "
                              f"values): from {s.source}", indent), f"{indent}{{"] + \
             [f"{indent}    {x}" for x in lines] + [f"{indent}}}"]
-
-    def swap_by_selects(self, matrix: str, c0: str, nc: str, rows: int) -> list[str]:
-        """Rows r and q >= r of columns [c0, c0 + nc) exchanged with only the loads waiting for q: row q is written
-        by a select over every row below r, at addresses known before q is, so the vector loads of the updates
-        that follow need not wait for the address of a store (measured with bench/small.py: README)."""
-        T, U = self.scalar.c_type, self.bits()[0]
-        def one(cj: str) -> list[str]:
-            x, y, at = (self.elem(matrix, i, cj) for i in ("r", "q", "i"))
-            sel = for_("i", "r + 1", str(rows), [f"e.f = {at};",
-                                                 f"e.u ^= (e.u ^ xb) & (({U})0 - ({U})(({U})i == ({U})q));",
-                                                 f"{at} = e.f;"], "")
-            return ["{", f"    union {{ {T} f; {U} u; }} e;", f"    {U} xb;", f"    const {T} y = {y};",
-                    f"    e.f = {x};", "    xb = e.u;", f"    {x} = y;"] + [f"    {t}" for t in sel] + ["}"]
-        return [ln for j in range(int(nc)) for ln in one(plus(c0, str(j)))]
 
     def visit_RowSwaps(self, s: RowSwaps, indent: str) -> list[str]:
         if s.by != "select" and s.matrix != self.local:     # a local array is exchanged in place either way
@@ -329,12 +308,6 @@ class FixedCPrinter(CPrinter):
         else:
             swap = for_("j", "0", nc, [f"const {T} x = {at('r')}, y = {at('q')};", f"{at('q')} = x;",
                                        f"{at('r')} = y;"], "")
-        rows = self.rows_of(s.matrix)
-        # Only where the columns are written out (the steps unrolled): in a kept step loop the selects over the
-        # rows below ran the factor in 1.4-1.5x the time at n = 12, 16 (bench/small.py, same run).
-        if s.by == "select" and s.matrix != self.local and rows is not None and not self.transposed \
-                and _int(nc) is not None:
-            swap = self.swap_by_selects(s.matrix, c0, nc, rows)
         lines = for_("r", self.x(s.steps.lo), self.x(s.steps.hi), ["const size_t q = (size_t)ipiv[r];"] + swap, "")
         return [self.comment(f"row interchanges, each done even when a row is exchanged with itself: {s.source}",
                              indent)] + [indent + x for x in lines]
