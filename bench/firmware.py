@@ -33,7 +33,8 @@ def kernels() -> list[tuple[str, str, str, object, str]]:
     """(label, symbol, C text, options or None, header) for each shaping and the textbook."""
     out = []
     for h in C_HELPERS:
-        o = make_options(f"lean_{h}", "right-looking", 1, scalar="float", pivoting="partial", c_helpers=h)
+        o = make_options(f"lean_{h}", "right-looking", 1, scalar="float", pivoting="partial", c_helpers=h,
+                         target="cortex-m4f")
         files = dict(emit_kernel(o).files)
         out.append((f"generated, c_helpers = \"{h}\"", o.name, files[f"{o.name}.c"], o, files[f"{o.name}.h"]))
     tb = textbook_options()

@@ -9,6 +9,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import refcheck as ref
+from derive.check.accuracy import solve_componentwise_ratio
 from conftest import names
 
 KERNELS = names("pivoted")
@@ -78,6 +79,54 @@ def test_solve_matches_lu_solve(pivoted, name, n, nrhs, pad, seed):
     xp = b.copy()
     k.py.solve(lu, xp, ipiv)
     assert ref.solve_ratio(a, xp, b) < THRESH
+
+
+UNBLOCKED = [name for name in KERNELS if "_b1_" in name]
+
+
+@pytest.mark.parametrize("name", UNBLOCKED)
+@settings(max_examples=4)
+@given(n=st.integers(1, 40), seed=st.integers(0, 2 ** 32 - 1))
+def test_one_column_solve_is_the_general_one(pivoted, name, n, seed):
+    """The one-right-hand-side path (a second path in the emitted solve) does the general path's arithmetic:
+    with b column-major (its loops along the column either way) x from nrhs = 1 equals, bit for bit, each
+    column of an nrhs = 2 solve of the same column twice; with b row-major a row's products are summed before
+    they are subtracted, so it meets Higham's componentwise bound (2002, Thm 9.4) instead. Both meet LAPACK's
+    dget02 ratio (TESTING/LIN/dget02.f)."""
+    k = pivoted[name]
+    rng = np.random.default_rng(seed)
+    a = rng.standard_normal((n, n)).astype(k.c.dtype)
+    b = rng.standard_normal((n, 1)).astype(k.c.dtype)
+    info, lu, ipiv, _ = k.c.factor(a)
+    assert info == 0
+    code, x1, ok = k.c.solve(lu, b, ipiv)
+    assert code == 0 and ok
+    code, x2, ok = k.c.solve(lu, np.hstack([b, b]), ipiv)
+    assert code == 0 and ok
+    assert np.array_equal(x2[:, 0], x2[:, 1])
+    if k.options.layout == "column-major":
+        assert np.array_equal(x1[:, 0], x2[:, 0])
+    assert solve_componentwise_ratio(a, lu, ipiv, x1[:, 0], b[:, 0]) <= 1
+    assert ref.solve_ratio(a, x1, b) < THRESH
+
+
+def test_one_column_path_follows_the_target_row():
+    """The target table decides whether the one-column path is worth its code: the host rows take it, the
+    microcontroller rows (code size first) do not; a blocked solve never does."""
+    from derive.options import make_options
+    from derive.printers.emit import emit_kernel
+    from derive.targets.table import TARGETS
+
+    def solve_text(target: str, block: int = 1) -> str:
+        o = make_options("oc", "right-looking", block, scalar="float", pivoting="partial", target=target)
+        c = dict(emit_kernel(o).files)["oc.c"]
+        return c[c.index("int oc_solve("):]
+
+    assert "if (NRHS == 1U)" in solve_text("generic")
+    assert "if (NRHS == 1U)" not in solve_text("generic", block=4)
+    for name, row in TARGETS.items():
+        assert ("if (NRHS == 1U)" in solve_text(name)) == row.one_column_solve
+    assert not TARGETS["cortex-m4f"].one_column_solve and TARGETS["host"].one_column_solve
 
 
 # LAPACK TESTING/LIN/dchkge.f matrix types (built as dlatb4.f / dlatms.f do; see refcheck)

@@ -7,12 +7,12 @@ import ast
 import dataclasses
 import re
 
-from derive.lowering.ir import (Block, Call, Gemm, Kernel, Lin, Loop, OneColumn, PivotSearch,
+from derive.lowering.ir import (Block, Gemm, Kernel, Lin, Loop, OneColumn, PivotSearch,
                                 RowSwaps, Routine, Scale, Span, Step, Trsm)
+from derive.lowering.onecolumn import RHS, inlined
 from derive.options import KernelOptions
 
 SIZE = "n"      # the size argument that a fixed-size kernel knows
-RHS = "nrhs"    # the one the solve specialises for a single column
 
 
 # -- substitution of known sizes ---------------------------------------------------------------------------------
@@ -151,7 +151,6 @@ def lower_fixed(kernel: Kernel, o: KernelOptions, choices: str = "select",
     n = o.size
     assert n is not None
     env = {SIZE: n}
-    by_name = {r.name: r for r in kernel.routines}
     timed = constant_time if choices == "select" else (lambda s: s)
     out = []
     for r in kernel.routines:
@@ -168,13 +167,7 @@ def lower_fixed(kernel: Kernel, o: KernelOptions, choices: str = "select",
             out.append(dataclasses.replace(r, params=params, body=body, extents=extents))
             continue
         # the solve: the triangular solves inlined, then specialised once more for a single right-hand side
-        general = []
-        for s in r.body:
-            if isinstance(s, Call):
-                callee = by_name[s.routine]
-                general += [reciprocal(t) for t in callee.body]
-            else:
-                general.append(s)
+        general = inlined(r, kernel, reciprocal)
         # several right-hand sides: the loops stay (the compile time goes to the one-column path)
         general_t = tuple(timed(s) for s in unroll(tuple(general), env, 0))
         special = tuple(timed(s) for s in unroll(tuple(general), dict(env, **{RHS: 1})))

@@ -146,7 +146,10 @@ class InlineLoops:
         for w in swaps:
             # several ranges share the block: only the last counter may be declared without braces of its own
             own = len(swaps) == 1
-            body += [f"    {ln}" for ln in self.exchange(s.matrix, r, "q", w.cols, inner, own)]
+            lines = self.exchange(s.matrix, r, "q", w.cols, inner, own)
+            if own and w.cols.is_unit():
+                lines = [ln[4:] for ln in lines[1:-1]]     # one column alone: the if's braces are its scope
+            body += [f"    {ln}" for ln in lines]
         body.append("}")
         if unit:
             return [f"{indent}{{", *(f"{indent}    {ln}" for ln in body), f"{indent}}}"]

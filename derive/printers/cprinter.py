@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import re
 
-from derive.lowering.ir import (Block, Call, FactorCall, Gemm, Leaf, Lin, Loop, Param, PivotCheck, PivotSearch, RowSwaps, Routine, Scale,
-                 Span, Step, Trsm)
+from derive.lowering.ir import (Block, Call, FactorCall, Gemm, Leaf, Lin, Loop, OneColumn, Param, PivotCheck, PivotSearch,
+                                RowSwaps, Routine, Scale, Span, Step, Trsm)
 from derive.lowering.printing import show_lin
 from derive.printers.cloops import InlineLoops, joined_exchange
 from derive.targets.storage import Layout, Scalar
@@ -115,6 +115,11 @@ class CPrinter:
         for t in s.body:
             out += self.visit(t, indent)
         return out
+
+    def visit_OneColumn(self, s: OneColumn, indent: str) -> list[str]:
+        return [self.comment(s.source, indent), f"{indent}if ({self.names.get(s.var, s.var)} == 1U) {{",
+                *self.statements(s.special, indent + "    "), f"{indent}}} else {{",
+                *self.statements(s.general, indent + "    "), f"{indent}}}"]
 
     def visit_Loop(self, s: Loop, indent: str) -> list[str]:
         k, e = s.var, self.x(s.extent)
@@ -246,7 +251,9 @@ class CPrinter:
         if public:
             sizes = [p.name for p in r.params if p.kind == "size"]
             out += [f"    const size_t {n.upper()} = (size_t){n};" for n in sizes]
-        loops = [s for s in r.body if isinstance(s, Loop)]
+        # the loops of the routine, or of either path of a one-column solve
+        tops = [t for s in r.body for t in ((*s.special, *s.general) if isinstance(s, OneColumn) else (s,))]
+        loops = [s for s in tops if isinstance(s, Loop)]
         if loops and not self.loop_vars_in_for:
             out.append("    size_t k;")
             if any(lp.step > 1 for lp in loops):

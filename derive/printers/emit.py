@@ -15,13 +15,15 @@ from derive.printers.cfixed import FixedCPrinter
 from derive.printers import firmware
 from derive.printers.cprinter import HELPER_ORDER
 from derive.printers.microkernel import header_notes, packed_parts, printer_for
-from derive.lowering.fixed import MAX_EXTENT_FACTOR, lower_fixed
+from derive.lowering.fixed import MAX_EXTENT_FACTOR, lower_fixed, substitute
+from derive.lowering.onecolumn import one_column_solves
 from derive.engine.invariants import make
-from derive.lowering.ir import Kernel, Step
+from derive.lowering.ir import Kernel, OneColumn, Step
 from derive.lowering.lower import invariant_text, lower_kernel
 from derive.options import KernelOptions
 from derive.printers.write import content_hash_line, plan, seal, write_set
 from derive.printers.pyprinter import PyPrinter, invariant_data
+from derive.targets import table
 from derive.targets.storage import LAYOUTS, SCALARS
 
 TEMPLATES = Path(__file__).resolve().parents[1] / "templates"
@@ -84,7 +86,13 @@ def lower_options(o: KernelOptions, choices: str | None = None, factor_steps: in
     factor unrolled into steps up to n = factor_steps)."""
     kernel = lower_kernel(o)
     choices = choices or ("select" if o.constant_time else "branch")
-    return lower_fixed(kernel, o, choices, factor_steps) if o.size is not None else kernel
+    if o.size is not None:
+        return lower_fixed(kernel, o, choices, factor_steps)
+    # a batched solve has one right-hand side per matrix already (its lanes lowering takes the general path);
+    # the target row says whether the one-column path is worth its code
+    if o.lanes == 1 and table.get(o.target).one_column_solve:
+        return one_column_solves(kernel, substitute)
+    return kernel
 
 
 def emit_kernel(o: KernelOptions, choices: str | None = None) -> Emitted:
@@ -102,7 +110,9 @@ def emit_kernel(o: KernelOptions, choices: str | None = None) -> Emitted:
                   upper_loop=o.upper_loop, invariant_doc=invariant_text(operation.LU, o.invariant, inv.label),
                   size=o.size, constant_time=o.constant_time,
                   # how many steps the fixed-size factor is unrolled into (0: its loop is kept)
-                  steps=sum(isinstance(st, Step) for r in kernel.routines if r.role == "factor" for st in r.body))
+                  steps=sum(isinstance(st, Step) for r in kernel.routines if r.role == "factor" for st in r.body),
+                  one_column=any(isinstance(st, OneColumn) for r in kernel.routines if r.role == "solve"
+                                 for st in r.body))
 
     cp = (FixedCPrinter(o.name, layout, scalar, o.size) if o.size is not None
           else printer_for(o, layout, scalar))
