@@ -30,17 +30,34 @@ class Abi:
     solve_args: str
     orders: tuple[int, ...] | None = None     # None: any n; else only these
     unsupported: str | None = None            # why the driver cannot call such a kernel yet
+    piv_words: str = "(size_t)n + 2u * LUF_GUARD"   # entries of the driver's pivot buffer sent back
+    kind: str = "matrix"                      # the module that lays out and judges the cases (KIND_MODULES)
+    report: str | None = None                 # why `luforge report` cannot measure such a kernel yet
+
+
+# choose_cases and judge per kind of calling convention; each case offers fields(), a_buf, b_buf, piv_len()
+KIND_MODULES = {"matrix": "derive.check.ondevice", "lanes": "derive.check.ondevice_lanes"}
 
 
 def abi_of(o: KernelOptions) -> Abi:
     piv = ", ipiv" if o.pivoting != "none" else ""
-    if getattr(o, "lanes", 1) > 1:
-        # W interleaved matrices per call need their buffers interleaved by choose_cases/data_c as well
-        return Abi("", "", None, "batched (lanes) kernels are not driven on a target yet")
     size = getattr(o, "size", None)   # fixed-order kernels: `int NAME(T *a, int lda, int *ipiv)`
+    if getattr(o, "lanes", 1) > 1:
+        # W interleaved matrices per call: the case's nrhs is the count of matrices (one right-hand side each),
+        # and the driver's pivot buffer holds ipiv[count * n], GUARD canaries, then info[count]
+        n_arg = "" if size else "n, "
+        info = f"ipiv + (size_t)nrhs * (size_t)n + {GUARD}"
+        return Abi(f"nrhs, {n_arg}a, ipiv, {info}", f"nrhs, {n_arg}a, ipiv, b", (int(size),) if size else None,
+                   piv_words=f"(size_t)nrhs * (size_t)n + (size_t)nrhs + {3 * GUARD}u", kind="lanes",
+                   report="batched (lanes) kernels are not measured by report yet")
     if size:
         return Abi(f"a, lda{piv}", f"nrhs, a, lda{piv}, b, ldb", (int(size),))
     return Abi(f"n, a, lda{piv}", f"n, nrhs, a, lda{piv}, b, ldb")
+
+
+def kind_of(o: KernelOptions):
+    import importlib
+    return importlib.import_module(KIND_MODULES[abi_of(o).kind])
 
 
 @dataclass
@@ -54,6 +71,20 @@ class Case:
     judge: str = "random"       # what is promised: "random" (ratios and Higham's bound), "exact" (the known
                                 # factors, bit for bit), "lapack" (dchkge: code, dget01, dget02), "code" only
     exact: tuple | None = None  # (lu, ipiv) for "exact"
+
+    def fields(self) -> tuple[int, int, int, int]:
+        return self.n, self.a_place.ld, NRHS, self.b_place.ld
+
+    @property
+    def a_buf(self) -> np.ndarray:
+        return self.a_place.buf
+
+    @property
+    def b_buf(self) -> np.ndarray:
+        return self.b_place.buf
+
+    def piv_len(self) -> int:
+        return self.n + 2 * GUARD
 
 
 def _bits(dtype) -> np.dtype:
@@ -133,11 +164,11 @@ def data_c(o: KernelOptions, cases: list[Case]) -> str:
         return f"static const luf_bits {name}[{len(words)}] = {{\n{body}\n}};"
 
     for k, c in enumerate(cases):
-        out += [array(f"a{k}", c.a_place.buf), array(f"b{k}", c.b_place.buf)]
+        out += [array(f"a{k}", c.a_buf), array(f"b{k}", c.b_buf)]
     out += ["", "extern const struct luf_case luf_cases[];", "extern const int luf_ncases;", "",
             f"const struct luf_case luf_cases[{max(1, len(cases))}] = {{"]
-    out += [f"    {{{c.n}, {c.a_place.ld}, {NRHS}, {c.b_place.ld}, {len(c.a_place.buf)}, {len(c.b_place.buf)}, "
-            f"a{k}, b{k}}}," for k, c in enumerate(cases)] or ["    {0, 1, 0, 1, 0, 0, NULL, NULL}"]
+    out += [f"    {{{', '.join(str(f) for f in c.fields())}, {len(c.a_buf)}, {len(c.b_buf)}, a{k}, b{k}}},"
+            for k, c in enumerate(cases)] or ["    {0, 1, 0, 1, 0, 0, NULL, NULL}"]
     out += ["};", f"const int luf_ncases = {len(cases)};", ""]
     return "\n".join(out)
 
@@ -150,8 +181,8 @@ def driver_c(o: KernelOptions, t: Target, cases: list[Case]) -> str:
     return env.get_template("driver.c.j2").render(
         version=__version__, name=o.name, target=t.name, real=SCALARS[o.scalar].c_type,
         bits=f"uint{8 * bits.itemsize}_t", guard=GUARD, paint_words=t.paint_bytes // 4,
-        max_a=max([len(c.a_place.buf) for c in cases] + [1]), max_b=max([len(c.b_place.buf) for c in cases] + [1]),
-        max_piv=max([c.n for c in cases] + [0]) + 2 * GUARD,
+        max_a=max([len(c.a_buf) for c in cases] + [1]), max_b=max([len(c.b_buf) for c in cases] + [1]),
+        max_piv=max([c.piv_len() for c in cases] + [2 * GUARD]), piv_words=abi.piv_words,
         factor_call=f"{o.name}({abi.factor_args})", solve_call=f"{o.name}_solve({abi.solve_args})")
 
 
@@ -311,22 +342,21 @@ def check_on(o: KernelOptions, t: Target, rng, per_size: int = 2, host=None) -> 
     why = abi_of(o).unsupported
     if why:
         return TargetRow(o.name, [], 0, 0.0, 0.0, 0.0, [], target=t.name, notes=[f"not run: {why}"])
-    cases = choose_cases(o, t, rng, per_size)
+    kind = kind_of(o)
+    cases = kind.choose_cases(o, t, rng, per_size)
     img = image_for(o, t, cases)
     results = parse(o, cross.run(img).stdout, len(cases))
-    return judge(o, t, cases, results, host)
+    return kind.judge(o, t, cases, results, host)
 
 
 def host_kernels(options: list[KernelOptions]) -> dict:
     """The host's cffi build of each kernel, the reference the targets' bits are compared with."""
     from derive.check.build import build
-    from derive.check.harness import CKernel
+    from derive.check.harness import CKernel, LaneKernel
     emitted = [emit_kernel(o) for o in options]
     mod = build([(e.options.name, dict(e.files)[f"{e.options.name}.c"], dict(e.files)[f"{e.options.name}.h"])
                  for e in emitted])
-    return {o.name: CKernel(mod, o) for o in options}
-
-
+    return {o.name: (LaneKernel if abi_of(o).kind == "lanes" else CKernel)(mod, o) for o in options}
 
 
 def verify_targets(options: list[KernelOptions], targets: list[Target], seed: int = 20261202, per_size: int = 2,

@@ -167,7 +167,8 @@ def _counts(o: KernelOptions, t: Target, orders, seed: int):
 
 
 def report_kernel(o: KernelOptions, t: Target, orders=DEFAULT_ORDERS, seed: int = 20261202) -> Entry:
-    why = ondevice.abi_of(o).unsupported
+    abi = ondevice.abi_of(o)
+    why = abi.unsupported or abi.report
     if why:
         empty = Stack(0, [], [], False, False, 0)
         return Entry(o.name, t.name, o.scalar, Bytes(0, 0, 0), Bytes(0, 0, 0), empty, empty, {}, {}, [], 0,

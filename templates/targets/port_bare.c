@@ -37,3 +37,46 @@ void luf_exit(int status)
 /* noinline and an empty asm keep each marker a real call the plugin can see */
 __attribute__((noinline)) void luf_mark_begin(void) { __asm__ volatile("" ::: "memory"); }
 __attribute__((noinline)) void luf_mark_end(void) { __asm__ volatile("" ::: "memory"); }
+
+/* GCC requires a freestanding environment to provide memcpy, memmove, memset and memcmp and may call them for
+   plain C loops (GCC manual, "Language Standards Supported by GCC"): the rows linked without a C library get
+   them here, byte by byte; the attribute keeps GCC from turning these very loops back into such calls. */
+#define LUF_NO_LIBCALLS __attribute__((optimize("no-tree-loop-distribute-patterns")))
+void *memcpy(void *restrict dst, const void *restrict src, size_t n);
+void *memmove(void *dst, const void *src, size_t n);
+void *memset(void *dst, int c, size_t n);
+int memcmp(const void *x, const void *y, size_t n);
+
+LUF_NO_LIBCALLS void *memcpy(void *restrict dst, const void *restrict src, size_t n)
+{
+    unsigned char *d = dst;
+    const unsigned char *s = src;
+    while (n--) *d++ = *s++;
+    return dst;
+}
+
+LUF_NO_LIBCALLS void *memmove(void *dst, const void *src, size_t n)
+{
+    unsigned char *d = dst;
+    const unsigned char *s = src;
+    if (d < s)
+        while (n--) *d++ = *s++;
+    else
+        while (n--) d[n] = s[n];
+    return dst;
+}
+
+LUF_NO_LIBCALLS void *memset(void *dst, int c, size_t n)
+{
+    unsigned char *d = dst;
+    while (n--) *d++ = (unsigned char)c;
+    return dst;
+}
+
+LUF_NO_LIBCALLS int memcmp(const void *x, const void *y, size_t n)
+{
+    const unsigned char *a = x, *b = y;
+    for (; n; --n, ++a, ++b)
+        if (*a != *b) return *a < *b ? -1 : 1;
+    return 0;
+}
