@@ -11,7 +11,7 @@ import subprocess
 import numpy as np
 import pytest
 
-from derive.check import cross, ondevice, report
+from derive.check import cross, ondevice, ondevice_lanes, report
 from derive.check.harness import GUARD
 from derive.cli import main
 from derive.lowering.counts import lu_flops
@@ -113,6 +113,101 @@ def test_reference_matrices_return_the_expected_codes_and_exact_factors(host):
         bad = [dataclasses.replace(r, a_buf=r.a_buf.copy()) for r in results]
         bad[k].a_buf[int(cases[k].a_place.index()[1, 0])] += 1
         assert any("exactly known" in p for p in ondevice.judge(o, t, cases, bad).problems)
+
+
+# Batched kernels: runtime n with the aarch64 row's 16-byte lane vectors (GCC vector extensions wherever GCC
+# builds it) and a fixed order with W = 3 in plain C; per_size = 1 gives W + 1 matrices, a partial last group.
+LANE_KERNELS = (
+    make_options("tt_lanes4_s", "right-looking", 1, scalar="float", pivoting="partial", lanes=4,
+                 target="aarch64-linux"),
+    make_options("tt_lanes3_fixed5_d", "crout", 2, inner="left-looking", scalar="double", pivoting="partial",
+                 lanes=3, size=5, layout="row-major"),
+)
+
+
+@pytest.fixture(scope="module")
+def lane_host():
+    return ondevice.host_kernels(list(LANE_KERNELS))
+
+
+@pytest.mark.parametrize("row", ("cortex-m4f", "aarch64-linux"))
+def test_row_runs_lanes_kernels_bit_identical_to_host(row, lane_host):
+    t = get(row)
+    _usable(t)
+    for k, o in enumerate(LANE_KERNELS):
+        cases = ondevice_lanes.choose_cases(o, t, np.random.default_rng([7, k]), per_size=1)
+        assert {c.judge for c in cases} == {"random", "nan", "lapack"}
+        assert all(c.count % o.lanes for c in cases if c.judge != "lapack")      # every batch ends partial
+        # LAPACK TESTING/LIN/dchkge.f: types 5, 6, 7 are singular with INFO = IZERO, side by side with the others
+        assert any(c.expect.any() and not c.expect.all() for c in cases if c.judge == "lapack")
+        r = ondevice.check_on(o, t, np.random.default_rng([7, k]), per_size=1, host=lane_host[o.name])
+        # thresholds: LAPACK TESTING/dtest.in (ratios < 30), Higham 2002, Thm 9.3 (componentwise <= 1)
+        assert r.passed, (row, o.name, r.problems)
+        assert r.bit_identical and not r.notes
+        assert r.sizes == ([5] if o.size else [0, 1, 2, 3, 4, 5, 7, 8, 9, 10, 16, 17])
+
+
+def _one_lane_broken(edit: str):
+    """emit_kernel with the factor of tt_lanes4_s wrapped so that, after it, lane 1 of the first group gets
+    `edit` applied to the bits of its U(n-1, n-1): the C of one lane made wrong on purpose."""
+    real = ondevice.emit_kernel
+
+    def emit(o):
+        e = real(o)
+        files = dict(e.files)
+        name = o.name
+        files[f"{name}.c"] = (f"#define {name} {name}_broken\n" + files[f"{name}.c"] + f"\n#undef {name}\n"
+                              f"int {name}(int count, int n, float *a, int *ipiv, int *info)\n{{\n"
+                              f"    int code = {name}_broken(count, n, a, ipiv, info);\n"
+                              f"    if (count > 1 && n > 0) {{\n"
+                              f"        union {{ float f; uint32_t u; }} p;\n"
+                              f"        size_t k = ((size_t)n * (size_t)n - 1u) * {name.upper()}_LANES + 1u;\n"
+                              f"        p.f = a[k];\n        {edit};\n        a[k] = p.f;\n    }}\n"
+                              f"    return code;\n}}\n")
+        return dataclasses.replace(e, files=tuple(files.items()))
+    return emit
+
+
+@pytest.mark.parametrize("edit, caught", (("p.u ^= 1u", "bits"), ("p.f += 1.0f", "factor ratio")))
+def test_lanes_judge_catches_one_wrong_lane_on_a_row(edit, caught, lane_host, monkeypatch):
+    t = get("aarch64-linux")
+    _usable(t)
+    o = LANE_KERNELS[0]
+    monkeypatch.setattr(ondevice, "emit_kernel", _one_lane_broken(edit))
+    r = ondevice.check_on(o, t, np.random.default_rng([7, 0]), per_size=1, host=lane_host[o.name])
+    assert not r.passed and any(caught in p for p in r.problems), r.problems
+    # the last bit alone leaves the ratios within LAPACK's thresholds: only the comparison with the host sees it
+    assert not r.bit_identical
+
+
+def test_lanes_judge_catches_an_unused_lane_a_code_and_a_leaking_nan(lane_host):
+    t = get("host")
+    o = LANE_KERNELS[0]
+    cases = ondevice_lanes.choose_cases(o, t, np.random.default_rng(3), per_size=1)
+    results = ondevice.parse(o, cross.run(ondevice.image_for(o, t, cases)).stdout, len(cases))
+    assert ondevice_lanes.judge(o, t, cases, results, lane_host[o.name]).passed
+    k = next(i for i, c in enumerate(cases) if c.judge == "random" and c.n == 3)
+    nan = next(i for i, c in enumerate(cases) if c.judge == "nan")
+
+    def tampered(i, fn):
+        rs = [dataclasses.replace(r, a_buf=r.a_buf.copy(), piv_buf=r.piv_buf.copy(), b_buf=r.b_buf.copy())
+              for r in results]
+        fn(cases[i], rs[i])
+        return ondevice_lanes.judge(o, t, cases, rs).problems
+
+    def unused_lane(c, r):
+        # the last lane of the partial last group: no matrix lives there, its bits must stay
+        r.a_buf[GUARD + len(c.a_buf) - 2 * GUARD - 1] = 0
+    assert any("unused lanes" in p for p in tampered(k, unused_lane))
+
+    def code(c, r):
+        r.piv_buf[c.info_at()] = 99
+    assert any("codes" in p for p in tampered(k, code))
+
+    def leak(c, r):
+        other = (c.victim + 1) % c.count
+        r.a_buf[c.a_idx[other, 0, 0]] = np.nan
+    assert any("NaN changed another" in p for p in tampered(nan, leak))
 
 
 def test_missing_toolchain_names_the_package():
