@@ -82,7 +82,9 @@ def test_ctrl_c_during_the_renames_completes_the_new_set_and_exits_130(old_set, 
     def interrupting(src, dst):
         calls.append(dst)
         if len(calls) == 3:
-            os.kill(os.getpid(), signal.SIGINT)     # held until the set is complete
+            # raised in this thread, synchronously (os.kill may hand it to another thread of the process, and
+            # the handler then runs whenever the main thread next looks): held until the set is complete
+            signal.raise_signal(signal.SIGINT)
         return real(src, dst)
     monkeypatch.setattr(write_mod.os, "replace", interrupting)
     assert main(["generate", str(spec)]) == 130

@@ -184,12 +184,16 @@ def _size_axis(case: Case):
 
 
 def _codegen_target_axis(case: Case):
-    # the portable C, and the row being tuned for when that row specialises code (a vector width or ISA flags)
+    # the portable C, and the row being tuned for when that row specialises code (a vector width or ISA flags);
+    # a row whose kernels differ from the portable ones only in going without the one-column solve path (the
+    # microcontrollers: code size first) replaces the portable C rather than doubling the space
     from derive.targets import table
     rows = ["generic"]
     row = table.TARGETS.get(case.target)
     if row is not None and case.target != "generic" and (row.vector_bytes or row.codegen_flags):
         rows.append(case.target)
+    elif row is not None and not row.one_column_solve:
+        rows = [case.target]
     return rows
 
 
