@@ -344,6 +344,9 @@ def check_on(o: KernelOptions, t: Target, rng, per_size: int = 2, host=None) -> 
         return TargetRow(o.name, [], 0, 0.0, 0.0, 0.0, [], target=t.name, notes=[f"not run: {why}"])
     kind = kind_of(o)
     cases = kind.choose_cases(o, t, rng, per_size)
+    if not cases:
+        return TargetRow(o.name, [], 0, 0.0, 0.0, 0.0, [], target=t.name,
+                         notes=[f"not run: no test matrix of its orders fits the row's RAM (max_n = {t.max_n})"])
     img = image_for(o, t, cases)
     results = parse(o, cross.run(img).stdout, len(cases))
     return kind.judge(o, t, cases, results, host)
