@@ -7,6 +7,7 @@ import json
 import re
 import shutil
 import subprocess
+import sys
 
 import numpy as np
 import pytest
@@ -208,6 +209,20 @@ def test_lanes_judge_catches_an_unused_lane_a_code_and_a_leaking_nan(lane_host):
         other = (c.victim + 1) % c.count
         r.a_buf[c.a_idx[other, 0, 0]] = np.nan
     assert any("NaN changed another" in p for p in tampered(nan, leak))
+
+
+def test_lanes_without_scipy_is_one_line_naming_it(monkeypatch, capsys, tmp_path):
+    spec = tmp_path / "s.toml"
+    spec.write_text('[[kernel]]\nname = "tt_l"\nloop = "right-looking"\nblock = 1\nscalar = "float"\n'
+                    'pivoting = "partial"\nlanes = 4\n')
+    assert main(["generate", str(spec)]) == 0
+    capsys.readouterr()
+    monkeypatch.setitem(sys.modules, "scipy", None)     # import scipy now raises ImportError
+    monkeypatch.setitem(sys.modules, "scipy.linalg", None)
+    monkeypatch.setitem(sys.modules, "scipy.linalg.lapack", None)
+    assert main(["verify", str(spec), "--target", "host"]) == 1
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "scipy" in err and "getrf" in err
 
 
 def test_missing_toolchain_names_the_package():

@@ -5,9 +5,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.linalg.lapack
 
 from derive.check.accuracy import componentwise_ratio, factor_ratio, solve_ratio
+from derive.check.cross import ToolMissing
 from derive.check.harness import CANARY, GUARD, interleave_index
 from derive.check.matrices import lapack_ge_matrix
 from derive.check.ondevice import LAPACK_ORDERS, PIV_CANARY, Result, TargetRow, _same_bits
@@ -50,6 +50,11 @@ class LaneCase:
 
 def getrf(a: np.ndarray):
     """LAPACK getrf of one matrix (scipy's binding): (lu, 0-based pivots, info)."""
+    try:
+        import scipy.linalg.lapack
+    except ImportError:     # scipy is a test extra; the reference pivots of batched kernels need it
+        raise ToolMissing("checking batched kernels on a target compares their pivots with LAPACK getrf: "
+                          "install scipy (pip install '.[test]' in the luforge tree, or pip install scipy)") from None
     return (scipy.linalg.lapack.sgetrf if a.dtype == np.float32 else scipy.linalg.lapack.dgetrf)(a)
 
 
