@@ -212,3 +212,18 @@ def test_content_hash_seals_every_file(old_set):
             assert write_mod.seal_state(data + b"// edited on site\n") == "edited"
             assert write_mod.seal_state(data.replace(b"do not edit", b"edited", 1)) == "edited"
     assert write_mod.seal_state(b"int x;\n") == "foreign"
+
+
+def test_batched_and_fixed_size_files_are_sealed_and_regenerated(tmp_path, capsys):
+    """Every kind of kernel carries its content hash, so `generate` run again on the same spec replaces its own
+    files (a lanes kernel once shipped with an unfilled hash and was then taken for an edited file)."""
+    spec = tmp_path / "bays.toml"
+    spec.write_text('[[kernel]]\nname = "bays"\nloop = "right-looking"\npivoting = "partial"\nlanes = 4\n\n'
+                    '[[kernel]]\nname = "bays6"\nloop = "right-looking"\npivoting = "partial"\nlanes = 4\nsize = 6\n\n'
+                    '[[kernel]]\nname = "gate6"\nloop = "right-looking"\npivoting = "partial"\nsize = 6\n')
+    assert main(["generate", str(spec)]) == 0
+    for f in tmp_path.iterdir():
+        if f.suffix in (".c", ".h", ".py"):
+            assert write_mod.seal_state(f.read_bytes()) == "sealed", f.name
+    capsys.readouterr()
+    assert main(["generate", str(spec)]) == 0, capsys.readouterr().err

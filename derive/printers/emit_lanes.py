@@ -12,6 +12,7 @@ from derive.printers import emit
 from derive.printers.clanes import LaneCPrinter
 from derive.printers.cprinter import HELPER_ORDER
 from derive.printers.pylanes import LanePyPrinter
+from derive.printers.write import seal
 from derive.targets import table
 from derive.targets.storage import LAYOUTS, SCALARS
 
@@ -67,5 +68,7 @@ def emit_lanes(o: KernelOptions) -> emit.Emitted:
     py_text = env.get_template("python/kernel_lanes.py.j2").render(
         routines=fns, doc_summary=f"batched LU with partial pivoting, {o.loop} loop, block {o.block}, {o.scalar}",
         **common)
-    return emit.Emitted(o, ((f"{o.name}.c", emit._tidy(c_text)), (f"{o.name}.h", emit._tidy(h_text)),
-                            (f"{o.name}.py", emit._tidy(py_text, blanks=2))))
+    files = ((f"{o.name}.c", emit._tidy(c_text)), (f"{o.name}.h", emit._tidy(h_text)),
+             (f"{o.name}.py", emit._tidy(py_text, blanks=2)))
+    # sealed like every emitted file: without its content hash, `generate` would take its own files for edited ones
+    return emit.Emitted(o, tuple((n, seal(t)) for n, t in files))
