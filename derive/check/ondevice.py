@@ -11,7 +11,7 @@ from derive.check import cross
 from derive.check.accuracy import column_dominant, componentwise_ratio, factor_ratio, solve_ratio
 from derive.check.harness import GUARD, Placed, place
 from derive.check.matrices import exact_factors, lapack_ge_matrix, zero_columns
-from derive.check.verify import THRESHOLD, sizes_for
+from derive.check.verify import THRESHOLD, ratio_problems, sizes_for
 from derive.options import KernelOptions
 from derive.printers.emit import emit_kernel
 from derive.targets.storage import LAYOUTS, SCALARS
@@ -314,20 +314,21 @@ def judge(o: KernelOptions, t: Target, cases: list[Case], results: list[Result],
                 _, hx, _ = host.solve(hlu, c.b, hpiv, c.a_place.ld, c.b_place.ld)
                 same = _same_bits(hx, x)
             identical = identical and same
-    if wf >= THRESHOLD:
-        problems.append(f"factor ratio {wf:.3g} >= {THRESHOLD}")
-    if wc > 1:
-        problems.append(f"componentwise backward error {wc:.3g} x gamma_n")
-    if ws >= THRESHOLD:
-        problems.append(f"solve ratio {ws:.3g} >= {THRESHOLD}")
-    if host is not None and not identical:
+    return verdict(o, t, cases, len(cases), results, (wf, wc, ws), problems, identical if host is not None else None)
+
+
+def verdict(o: KernelOptions, t: Target, cases, matrices: int, results: list[Result], worst: tuple[float, float, float],
+            problems: list[str], identical: bool | None) -> TargetRow:
+    """The row of one kernel on one target: its worst ratios against host verify's thresholds, and whether it
+    equals the host build bit for bit (None: not compared)."""
+    problems = problems + ratio_problems(*worst)
+    if identical is False:
         # ISO C forbids contracting a*b - c into an FMA across statements and every row computes IEEE
         # binary32/64 with round-to-nearest, so the same C gives the same bits everywhere (common practice)
         problems.append("factors or solutions differ in their bits from the host build of the same C")
-    sizes = sorted({c.n for c in cases})
-    return TargetRow(o.name, sizes, len(cases), wf, wc, ws, problems, target=t.name,
+    return TargetRow(o.name, sorted({c.n for c in cases}), matrices, *worst, problems, target=t.name,
                      max_factor_stack=max([r.factor_stack for r in results] + [0]),
-                     max_solve_stack=max([r.solve_stack for r in results] + [0]), bit_identical=identical)
+                     max_solve_stack=max([r.solve_stack for r in results] + [0]), bit_identical=identical is not False)
 
 
 def image_for(o: KernelOptions, t: Target, cases: list[Case], tag: str = "verify") -> cross.Image:

@@ -10,8 +10,7 @@ from derive.check.accuracy import componentwise_ratio, factor_ratio, solve_ratio
 from derive.check.cross import ToolMissing
 from derive.check.harness import CANARY, GUARD, interleave_index
 from derive.check.matrices import lapack_ge_matrix
-from derive.check.ondevice import LAPACK_ORDERS, PIV_CANARY, Result, TargetRow, _same_bits
-from derive.check.verify import THRESHOLD
+from derive.check.ondevice import LAPACK_ORDERS, PIV_CANARY, Result, TargetRow, _same_bits, verdict
 from derive.check.verify_lanes import sizes_of
 from derive.options import KernelOptions
 from derive.targets.storage import SCALARS
@@ -188,16 +187,6 @@ def judge(o: KernelOptions, t: Target, cases: list[LaneCase], results: list[Resu
                 _, hx, _ = host.solve(hlu, hpiv, c.b)
                 same = _same_or_nan(hx, x)
             identical = identical and same
-    if wf >= THRESHOLD:
-        problems.append(f"factor ratio {wf:.3g} >= {THRESHOLD}")
-    if wc > 1:
-        problems.append(f"componentwise backward error {wc:.3g} x gamma_n")
-    if ws >= THRESHOLD:
-        problems.append(f"solve ratio {ws:.3g} >= {THRESHOLD}")
-    if host is not None and not identical:
-        # the same C on every row: plain C and the vector extensions are documented bit-identical, ISO C forbids
-        # contraction into FMA across statements, every row computes IEEE binary32/64 (common practice)
-        problems.append("factors or solutions differ in their bits from the host build of the same C")
-    return TargetRow(o.name, sorted({c.n for c in cases}), sum(c.count for c in cases), wf, wc, ws, problems,
-                     target=t.name, max_factor_stack=max([r.factor_stack for r in results] + [0]),
-                     max_solve_stack=max([r.solve_stack for r in results] + [0]), bit_identical=identical)
+    # plain C and the vector extensions are documented bit-identical, so the host build is the reference too
+    return verdict(o, t, cases, sum(c.count for c in cases), results, (wf, wc, ws), problems,
+                   identical if host is not None else None)
