@@ -81,16 +81,16 @@ def _banner(lines: list[str]):
     return render
 
 
-def lower_options(o: KernelOptions, choices: str | None = None, factor_steps: int = MAX_EXTENT_FACTOR) -> Kernel:
+def lower_options(o: KernelOptions, choices: str | None = None, factor_steps: int = MAX_EXTENT_FACTOR,
+                  one_column: bool = True) -> Kernel:
     """The kernel's routines: lowered for n as an argument, then specialised for a fixed n if it has one (its
-    factor unrolled into steps up to n = factor_steps)."""
+    factor unrolled into steps up to n = factor_steps), or else given a one-column solve path if `one_column`
+    and the target row says it is worth its code."""
     kernel = lower_kernel(o)
     choices = choices or ("select" if o.constant_time else "branch")
     if o.size is not None:
         return lower_fixed(kernel, o, choices, factor_steps)
-    # a batched solve has one right-hand side per matrix already (its lanes lowering takes the general path);
-    # the target row says whether the one-column path is worth its code
-    if o.lanes == 1 and table.get(o.target).one_column_solve:
+    if one_column and table.get(o.target).one_column_solve:
         return one_column_solves(kernel, substitute)
     return kernel
 

@@ -20,7 +20,8 @@ from derive.targets.storage import LAYOUTS, SCALARS
 def lower_batched(o: KernelOptions):
     """(the single-matrix kernel the lanes lowering takes, the batched kernel). With a fixed size the factor
     keeps its steps up to n = 16: each step's code serves W matrices (see fixed.py)."""
-    scalar_kernel = emit.lower_options(o, factor_steps=MAX_EXTENT)
+    # a batched solve has one right-hand side per matrix already: the lanes lowering takes the general path
+    scalar_kernel = emit.lower_options(o, factor_steps=MAX_EXTENT, one_column=False)
     return scalar_kernel, lower_lanes(scalar_kernel, o)
 
 
