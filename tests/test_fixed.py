@@ -279,3 +279,26 @@ def test_ir_dump_shows_the_steps(tmp_path):
     assert "every routine (n = 4)" in out and "routine tide_fix(a, lda, ipiv)" in out
     assert out.count("step k = ") == 2 + 2 + 2      # the factor, then the one-column forward and backward solves
     assert "by selects" in out and "when nrhs = 1" in out
+
+
+def test_emission_is_the_same_from_several_threads():
+    """`luforge tune` on an emulated target emits and measures two kernels at once (one thread each). The C text
+    of a kernel must not depend on what another thread prints meanwhile: a printer setting kept in a module
+    global once made the one-column solve come out unrolled or not by chance, and so the instruction counts.
+    Frequent thread switches make such interference show up in every run (it did: 17 of 40 texts differed)."""
+    import sys
+    from concurrent.futures import ThreadPoolExecutor
+
+    from derive.printers.emit import emit_kernel
+    text = "".join(_entry(f"th_{SHORT[loop]}_b{b}_{n}", loop, b, "float", "column-major", "partial", n)
+                   for loop in PIVOT_LOOPS for b in (1, 2) for n in (3, 4, 5))
+    opts = parse(text, "threads.toml")
+    alone = {o.name: emit_kernel(o).files for o in opts}
+    old = sys.getswitchinterval()
+    sys.setswitchinterval(1e-6)
+    try:
+        with ThreadPoolExecutor(4) as pool:
+            together = list(pool.map(lambda o: (o.name, emit_kernel(o).files), opts * 2))
+    finally:
+        sys.setswitchinterval(old)
+    assert [name for name, files in together if files != alone[name]] == []

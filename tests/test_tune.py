@@ -310,3 +310,21 @@ def test_emulated_target_counts_are_exact_and_repeat(tmp_path):
     assert first == again
     for f in first.values():
         assert not f["problems"] and f["factor"] > 0 and f["solve"] > 0 and f["bytes"] > 0 and f["stack"] > 0
+
+
+def test_target_figures_are_keyed_by_what_counts_them(tmp_path, monkeypatch):
+    """A cached count stands for the driver, startup and port code it ran with as much as for the kernel: a change
+    under templates/targets/ (say, the port's memcpy) gives another key, so the figure is measured again."""
+    import shutil
+
+    from derive.check import cross
+    backend = measure_mod.backend("cortex-m4f")
+    before = backend.where()
+    assert backend.where() == before            # stable from call to call, so the cache is reused
+    copy = tmp_path / "targets"
+    shutil.copytree(cross.TEMPLATES, copy)
+    monkeypatch.setattr(cross, "TEMPLATES", copy)
+    assert backend.where() == before
+    port = copy / "port_bare.c"
+    port.write_text(port.read_text() + "\n/* one more line */\n")
+    assert backend.where() != before

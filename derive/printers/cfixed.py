@@ -25,18 +25,15 @@ def plus(a: str, b: str) -> str:
     return f"{a} + {b}"
 
 
-UNROLL = [0]     # constant trip counts up to this are written out trip by trip (set while printing a part)
-
-
-def for_(var: str, lo: str, hi: str, body: list[str], indent: str, down: bool = False) -> list[str]:
+def for_(var: str, lo: str, hi: str, body: list[str], indent: str, down: bool = False, unroll: int = 0) -> list[str]:
     """A counted loop over [lo, hi); no loop at all when the bounds are constants giving one trip or none, or
-    few enough trips for UNROLL."""
+    at most `unroll` trips (then written out trip by trip)."""
     il, ih = _int(lo), _int(hi)
     inner = [f"    {line}" for line in body]
     if il is not None and ih is not None:
         if ih <= il:
             return []
-        if ih - il == 1 or ih - il <= UNROLL[0]:
+        if ih - il == 1 or ih - il <= unroll:
             order = range(ih - 1, il - 1, -1) if down else range(il, ih)
             used = re.search(rf"\b{var}\b", "\n".join(body)) is not None
             decl = lambda v: f"const size_t {var} = {v};" if used else ""  # noqa: E731
@@ -81,6 +78,10 @@ class FixedCPrinter(CPrinter):
         self.transposed = layout.leading != "rows"     # column-major code is the reference nest
 
     local: str | None = None      # the matrix held in the local array `rhs` (one right-hand side), if any
+    unroll = 0                    # constant trip counts up to this are written out trip by trip (one-column part)
+
+    def for_(self, var: str, lo: str, hi: str, body: list[str], indent: str, down: bool = False) -> list[str]:
+        return for_(var, lo, hi, body, indent, down, self.unroll)
 
     def elem(self, matrix: str, i: str, j: str) -> str:
         if matrix == self.local:
@@ -130,17 +131,17 @@ class FixedCPrinter(CPrinter):
             at = lambda i: f"{self.prefix.upper()}_AT({matrix}, {self.ld(matrix)}, {i}, 0)"  # noqa: E731
             out += [self.comment("the right-hand side in a local array while it is solved", ii),
                     f"{ii}{self.scalar.c_type} rhs[{self.size}];"] + \
-                for_("i", "0", str(self.size), [f"rhs[i] = {at('i')};"], ii)
+                self.for_("i", "0", str(self.size), [f"rhs[i] = {at('i')};"], ii)
             self.local = matrix
-        UNROLL[0] = self.size if self.size <= 16 else 0
+        self.unroll = self.size if self.size <= 16 else 0
         try:
             for t in s.special:
                 out += self.visit(t, ii)
         finally:
-            UNROLL[0] = 0
+            self.unroll = 0
             self.local = None
         if matrix is not None:
-            out += for_("i", "0", str(self.size), [f"{at('i')} = rhs[i];"], ii)
+            out += self.for_("i", "0", str(self.size), [f"{at('i')} = rhs[i];"], ii)
         out.append(f"{indent}}} else {{")
         for t in s.general:
             out += self.visit(t, indent + "    ")
@@ -156,12 +157,12 @@ class FixedCPrinter(CPrinter):
         m, n, k = c.rows(), c.cols(), a.cols()
         if m == "1":
             # a row of results: each is a dot product along the contiguous index of b
-            body = [f"{T} acc = 0;"] + for_("p", "0", k, [f"acc += {a('0', 'p')} * {b('p', 'j')};"], "") + \
+            body = [f"{T} acc = 0;"] + self.for_("p", "0", k, [f"acc += {a('0', 'p')} * {b('p', 'j')};"], "") + \
                    [f"{c('0', 'j')} -= acc;"]
-            lines = for_("j", "0", n, body, "")
+            lines = self.for_("j", "0", n, body, "")
         else:
-            inner = for_("i", "0", m, [f"{c('i', 'j')} -= {a('i', 'p')} * t;"], "")
-            lines = for_("j", "0", n, for_("p", "0", k, [f"const {T} t = {b('p', 'j')};"] + inner, ""), "")
+            inner = self.for_("i", "0", m, [f"{c('i', 'j')} -= {a('i', 'p')} * t;"], "")
+            lines = self.for_("j", "0", n, self.for_("p", "0", k, [f"const {T} t = {b('p', 'j')};"] + inner, ""), "")
         return [self.comment(f"{s.shape}: from {s.source}", indent)] + [indent + x for x in lines]
 
     def _divide(self, by: str, d: str) -> tuple[list[str], str]:
@@ -184,34 +185,34 @@ class FixedCPrinter(CPrinter):
         del b, t
         if left and s.uplo == "L":
             if free_outer:
-                upd = for_("i", "p + 1", m, [f"{B('i', 'j')} -= {U('i', 'p')} * t;"], "")
-                lines = for_("j", "0", n, for_("p", "0", m, [f"const {T} t = {B('p', 'j')};"] + upd, ""), "")
+                upd = self.for_("i", "p + 1", m, [f"{B('i', 'j')} -= {U('i', 'p')} * t;"], "")
+                lines = self.for_("j", "0", n, self.for_("p", "0", m, [f"const {T} t = {B('p', 'j')};"] + upd, ""), "")
             else:
-                upd = for_("j", "0", n, [f"{B('i', 'j')} -= t * {B('p', 'j')};"], "")
-                lines = for_("p", "0", m, for_("i", "p + 1", m, [f"const {T} t = {U('i', 'p')};"] + upd, ""), "")
+                upd = self.for_("j", "0", n, [f"{B('i', 'j')} -= t * {B('p', 'j')};"], "")
+                lines = self.for_("p", "0", m, self.for_("i", "p + 1", m, [f"const {T} t = {U('i', 'p')};"] + upd, ""), "")
         elif left:
             decl, op = self._divide(s.by, U("p", "p"))
             if free_outer:
-                upd = for_("i", "0", "p", [f"{B('i', 'j')} -= {U('i', 'p')} * t;"], "")
+                upd = self.for_("i", "0", "p", [f"{B('i', 'j')} -= {U('i', 'p')} * t;"], "")
                 body = ["{"] + [f"    {x}" for x in decl + [f"{B('p', 'j')} {op};"]] + ["}"]
-                lines = for_("j", "0", n, for_("p", "0", m, body + [f"const {T} t = {B('p', 'j')};"] + upd, "",
+                lines = self.for_("j", "0", n, self.for_("p", "0", m, body + [f"const {T} t = {B('p', 'j')};"] + upd, "",
                                                down=True), "")
             else:
-                scale = decl + for_("j", "0", n, [f"{B('p', 'j')} {op};"], "")
-                upd = for_("i", "0", "p", [f"const {T} t = {U('i', 'p')};"] +
-                           for_("j", "0", n, [f"{B('i', 'j')} -= t * {B('p', 'j')};"], ""), "")
-                lines = for_("p", "0", m, ["{"] + [f"    {x}" for x in scale] + ["}"] + upd, "", down=True)
+                scale = decl + self.for_("j", "0", n, [f"{B('p', 'j')} {op};"], "")
+                upd = self.for_("i", "0", "p", [f"const {T} t = {U('i', 'p')};"] +
+                           self.for_("j", "0", n, [f"{B('i', 'j')} -= t * {B('p', 'j')};"], ""), "")
+                lines = self.for_("p", "0", m, ["{"] + [f"    {x}" for x in scale] + ["}"] + upd, "", down=True)
         else:   # right, upper: B := B U^-1 (the factor's L21 from A21 and U11)
             decl, op = self._divide(s.by, U("p", "p") if free_outer else U("j", "j"))
             if not free_outer:      # column-major: i (rows of B) contiguous, innermost
-                upd = for_("p", "0", "j", [f"const {T} t = {U('p', 'j')};"] +
-                           for_("i", "0", m, [f"{B('i', 'j')} -= {B('i', 'p')} * t;"], ""), "")
-                scale = decl + for_("i", "0", m, [f"{B('i', 'j')} {op};"], "")
-                lines = for_("j", "0", n, upd + ["{"] + [f"    {x}" for x in scale] + ["}"], "")
+                upd = self.for_("p", "0", "j", [f"const {T} t = {U('p', 'j')};"] +
+                           self.for_("i", "0", m, [f"{B('i', 'j')} -= {B('i', 'p')} * t;"], ""), "")
+                scale = decl + self.for_("i", "0", m, [f"{B('i', 'j')} {op};"], "")
+                lines = self.for_("j", "0", n, upd + ["{"] + [f"    {x}" for x in scale] + ["}"], "")
             else:
-                upd = for_("j", "p + 1", n, [f"{B('i', 'j')} -= t * {U('p', 'j')};"], "")
+                upd = self.for_("j", "p + 1", n, [f"{B('i', 'j')} -= t * {U('p', 'j')};"], "")
                 body = ["{"] + [f"    {x}" for x in decl + [f"{B('i', 'p')} {op};"]] + ["}"]
-                lines = for_("i", "0", m, for_("p", "0", n, body + [f"const {T} t = {B('i', 'p')};"] + upd, ""),
+                lines = self.for_("i", "0", m, self.for_("p", "0", n, body + [f"const {T} t = {B('i', 'p')};"] + upd, ""),
                              "")
         what = "unit-lower" if s.uplo == "L" else "upper"
         return [self.comment(f"trsm ({s.side}, {what}): from {s.source}", indent)] + [indent + x for x in lines]
@@ -220,7 +221,7 @@ class FixedCPrinter(CPrinter):
         v = self.view(s.b)
         d = self.elem(s.pivot.matrix, self.x(s.pivot.rows.lo), self.x(s.pivot.cols.lo))
         decl, op = self._divide(s.by, d)
-        lines = decl + for_("j", "0", v.cols(), for_("i", "0", v.rows(), [f"{v('i', 'j')} {op};"], ""), "")
+        lines = decl + self.for_("j", "0", v.cols(), self.for_("i", "0", v.rows(), [f"{v('i', 'j')} {op};"], ""), "")
         how = "by the reciprocal of the pivot" if s.by == "reciprocal" else "by the pivot"
         return [self.comment(f"scal {how}: from {s.source}", indent), f"{indent}{{"] + \
             [f"{indent}    {x}" for x in lines] + [f"{indent}}}"]
@@ -259,7 +260,7 @@ class FixedCPrinter(CPrinter):
             f"e.f = {col('0')};",
             f"big = e.u & {mag};     /* a NaN in first place stays first: nothing lies above it */",
             f"{U} pv = e.u;     /* the pivot's bits, carried with its key */",
-        ] + for_("i", "1", m, [
+        ] + self.for_("i", "1", m, [
             f"{U} key, take;",
             f"e.f = {col('i')};",
             f"key = e.u & {mag};",
@@ -277,7 +278,7 @@ class FixedCPrinter(CPrinter):
             f"{col('0')} = e.f;",
         ]
         # the old diagonal entry goes to row q by a select over the rows below, so no store waits for q's address
-        below = for_("i", "1", m, [f"e.f = {col('i')};",
+        below = self.for_("i", "1", m, [f"e.f = {col('i')};",
                                    f"e.u ^= (e.u ^ tb) & (({U})0 - ({U})(i == q));",
                                    f"{col('i')} = e.f / s;"], "")
         if not below:
@@ -306,8 +307,8 @@ class FixedCPrinter(CPrinter):
                 x, y = self.elem(s.matrix, "r", plus(c0, str(j))), self.elem(s.matrix, "q", plus(c0, str(j)))
                 swap += [f"{{ const {T} x = {x}, y = {y}; {y} = x; {x} = y; }}"]
         else:
-            swap = for_("j", "0", nc, [f"const {T} x = {at('r')}, y = {at('q')};", f"{at('q')} = x;",
+            swap = self.for_("j", "0", nc, [f"const {T} x = {at('r')}, y = {at('q')};", f"{at('q')} = x;",
                                        f"{at('r')} = y;"], "")
-        lines = for_("r", self.x(s.steps.lo), self.x(s.steps.hi), ["const size_t q = (size_t)ipiv[r];"] + swap, "")
+        lines = self.for_("r", self.x(s.steps.lo), self.x(s.steps.hi), ["const size_t q = (size_t)ipiv[r];"] + swap, "")
         return [self.comment(f"row interchanges, each done even when a row is exchanged with itself: {s.source}",
                              indent)] + [indent + x for x in lines]

@@ -80,9 +80,18 @@ class TargetBackend:
         self.default_nrhs = ondevice.NRHS
 
     def where(self) -> str:
+        """The row, its compiler and everything that makes a count: the driver, startup and port sources under
+        templates/targets/ and the modules that build, run and count. A cached figure from before any of them
+        changed is measured again."""
         from derive.check import cross
         from derive.check.build import compiler_version
-        return repr(self.row) + compiler_version(cross.cc_of(self.row)[0])
+        h = hashlib.sha256()
+        for f in sorted(cross.TEMPLATES.iterdir()):
+            if f.is_file():
+                h.update(f.name.encode() + b"\0" + f.read_bytes() + b"\0")
+        for mod in (cross, self.report, self.ondevice):
+            h.update(Path(mod.__file__).read_bytes())
+        return repr(self.row) + compiler_version(cross.cc_of(self.row)[0]) + h.hexdigest()
 
     def check(self, case: Case, objective) -> None:
         if objective.name not in self.objectives:
