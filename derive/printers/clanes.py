@@ -66,11 +66,11 @@ class LaneCPrinter(CPrinter):
                              indent),
                 f"{indent}{{",
                 f"{indent}    int r[{self.prefix.upper()}_LANES];",
-                f"{indent}    size_t i, l;",
+                f"{indent}    size_t i, lane;",
                 f"{indent}    {s.routine}({m}, {n}, {self.ptr(s.block)}, ipiv + {r0}, ips, r, {nl});",
-                f"{indent}    for (l = 0; l < {nl}; ++l) {{",
-                f"{indent}        for (i = {r0}; i < {r0} + {n}; ++i) ipiv[l * ips + i] += (int)({r0});",
-                f"{indent}        if (r[l] != 0 && info[l] == 0) info[l] = r[l] + (int)({r0});",
+                f"{indent}    for (lane = 0; lane < {nl}; ++lane) {{",
+                f"{indent}        for (i = {r0}; i < {r0} + {n}; ++i) ipiv[lane * ips + i] += (int)({r0});",
+                f"{indent}        if (r[lane] != 0 && info[lane] == 0) info[lane] = r[lane] + (int)({r0});",
                 f"{indent}    }}",
                 f"{indent}}}"]
 
