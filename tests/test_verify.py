@@ -193,3 +193,11 @@ def test_an_unwritable_cache_falls_back_to_a_temporary_directory(shipped, monkey
 def test_budget_refuses_per_size_below_one():
     with pytest.raises(ValueError):
         Budget(per_size=0)
+
+
+def test_sizes_tried_are_named_once():
+    """verify's table: runs of sizes as ranges, and a size tried several times (a fixed-size kernel) once."""
+    from derive.check.verify import size_ranges
+    assert size_ranges([0, 1, 2, 3, 5, 7, 8]) == "0-3,5,7-8"
+    assert size_ranges([32, 32, 32, 32]) == "32"
+    assert size_ranges([9, 1, 2, 1]) == "1-2,9"

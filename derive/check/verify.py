@@ -131,7 +131,8 @@ def sizes_for(block: int, extra: tuple[int, ...] = ()) -> list[int]:
 
 
 def size_ranges(sizes: list[int]) -> str:
-    """[0,1,2,3,5,7,8] -> '0-3,5,7-8'."""
+    """[0,1,2,3,5,7,8] -> '0-3,5,7-8'; a size tried several times (a fixed-size kernel's) is named once."""
+    sizes = sorted(set(sizes))
     out, i = [], 0
     while i < len(sizes):
         j = i
@@ -339,7 +340,7 @@ def _verify_in(options: list[KernelOptions], directory: Path, budget: Budget,
         row.seconds = time.perf_counter() - t0
         rows.append(row)
         progress(f"verify [{i}/{len(options)}] {o.name}: {'pass' if row.passed else 'FAIL'} "
-                 f"({len(row.sizes)} sizes up to n={max(row.sizes)}, {row.matrices} matrices, {row.seconds:.1f} s)")
+                 f"({len(set(row.sizes))} sizes up to n={max(row.sizes)}, {row.matrices} matrices, {row.seconds:.1f} s)")
     return rows
 
 
