@@ -289,6 +289,42 @@ def test_report_warns_about_software_double_on_cortex_m4f(capsys, tmp_path):
     assert data[0]["runtime_bytes"] > 1000 and data[0]["instructions"]["8"]["total"] > 0
 
 
+@pytest.mark.parametrize("row", ("cortex-m4f", "aarch64-linux"))
+def test_report_counts_batched_kernels_per_group(row):
+    """A batched kernel's report: bytes, stack and the instructions of one call on one whole group of W
+    matrices (the driver's judge passes on them), the same on a second run; a fixed order is counted at its own
+    order whatever orders the others are counted at."""
+    t = get(row)
+    _usable(t)
+    for o in LANE_KERNELS:
+        e = report.report_kernel(o, t, orders=(4, 8))
+        assert not e.problems, e.problems
+        want = (o.size,) if o.size else (4, 8)
+        assert sorted(e.instructions) == sorted(e.solve_instructions) == list(want)
+        assert all(0 < fp < total for total, fp in e.instructions.values())
+        assert e.factor.text > 0 and e.factor.text < e.factor_solve.text and e.factor_stack.worst > 0
+        assert f"instructions are per call on one whole group of W = {o.lanes} matrices" in e.warnings
+        again = report.report_kernel(o, t, orders=(4, 8))
+        assert again.instructions == e.instructions and again.solve_instructions == e.solve_instructions
+
+
+def test_report_counts_a_fixed_order_missing_from_orders(capsys, tmp_path):
+    """--orders 4 and a kernel of fixed order 6: counted at 6 (it cannot run at 4), with a column for it; this
+    once failed to build the driver, which then held no matrix at all."""
+    t = get("cortex-m4f")
+    _usable(t)
+    spec = tmp_path / "s.toml"
+    spec.write_text('[[kernel]]\nname = "tt_f6"\nloop = "right-looking"\nscalar = "float"\npivoting = "partial"\n'
+                    'size = 6\n')
+    assert main(["report", str(spec), "--target", "cortex-m4f", "--orders", "4"]) == 0
+    md = capsys.readouterr().out
+    head = next(line for line in md.splitlines() if line.startswith("| kernel"))
+    row = next(line for line in md.splitlines() if line.startswith("| tt_f6"))
+    cells = dict(zip(head.split("|"), row.split("|")))
+    assert cells[" instructions n = 4 (float) "].strip() == "-"
+    assert re.fullmatch(r" [\d,]+ \([\d,]+\) ", cells[" instructions n = 6 (float) "])
+
+
 @pytest.mark.skipif(shutil.which("qemu-system-arm") is None, reason="qemu-system-arm not installed")
 def test_plugin_counts_a_known_instruction_sequence(tmp_path):
     """Two marked windows around code whose instructions are known from the Armv7-M encoding."""

@@ -32,7 +32,6 @@ class Abi:
     unsupported: str | None = None            # why the driver cannot call such a kernel yet
     piv_words: str = "(size_t)n + 2u * LUF_GUARD"   # entries of the driver's pivot buffer sent back
     kind: str = "matrix"                      # the module that lays out and judges the cases (KIND_MODULES)
-    report: str | None = None                 # why `luforge report` cannot measure such a kernel yet
 
 
 # choose_cases and judge per kind of calling convention; each case offers fields(), a_buf, b_buf, piv_len()
@@ -48,8 +47,7 @@ def abi_of(o: KernelOptions) -> Abi:
         n_arg = "" if size else "n, "
         info = f"ipiv + (size_t)nrhs * (size_t)n + {GUARD}"
         return Abi(f"nrhs, {n_arg}a, ipiv, {info}", f"nrhs, {n_arg}a, ipiv, b", (int(size),) if size else None,
-                   piv_words=f"(size_t)nrhs * (size_t)n + (size_t)nrhs + {3 * GUARD}u", kind="lanes",
-                   report="batched (lanes) kernels are not measured by report yet")
+                   piv_words=f"(size_t)nrhs * (size_t)n + (size_t)nrhs + {3 * GUARD}u", kind="lanes")
     if size:
         return Abi(f"a, lda{piv}", f"nrhs, a, lda{piv}, b, ldb", (int(size),))
     return Abi(f"n, a, lda{piv}", f"n, nrhs, a, lda{piv}, b, ldb")

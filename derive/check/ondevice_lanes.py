@@ -87,9 +87,19 @@ def _count(o: KernelOptions, t: Target, n: int, wanted: int) -> int | None:
 def choose_cases(o: KernelOptions, t: Target, rng, per_size: int = 2, orders=None) -> list[LaneCase]:
     """verify_lanes's batches for the sizes that fit the row: random matrices in per_size whole groups and one
     more, one lane with a zero column (an exact zero pivot); one batch again with a NaN in another lane; and
-    per LAPACK order one batch of dchkge's GE types side by side, singular ones with their exact codes."""
+    per LAPACK order one batch of dchkge's GE types side by side, singular ones with their exact codes. With
+    `orders`: one whole group of random matrices per order (for counting)."""
     dtype = np.dtype(SCALARS[o.scalar].numpy)
     cases: list[LaneCase] = []
+    if orders is not None:
+        # counting (`luforge report`): per order one whole group of W random matrices, so one call's count is
+        # the cost of W systems; a fixed-size kernel has its own order only
+        fixed = getattr(o, "size", None)
+        for n in orders:
+            if (fixed is None or n == fixed) and _count(o, t, n, o.lanes) == o.lanes:
+                mats = rng.standard_normal((o.lanes, n, n)).astype(dtype)
+                cases.append(_case(o, mats, rng, "random", [getrf(m)[2] if n else 0 for m in mats]))
+        return cases
     sizes = [n for n in sizes_of(o) if _count(o, t, n, per_size * o.lanes + 1)]
     for n in sizes:
         mats = rng.standard_normal((_count(o, t, n, per_size * o.lanes + 1), n, n)).astype(dtype)

@@ -153,7 +153,9 @@ def call_graph_stack(img: cross.Image, root: str) -> Stack:
 def _counts(o: KernelOptions, t: Target, orders, seed: int):
     """Run the driver on one matrix per order through the counting plugin: per order the factor's and the
     solve's (instructions, float instructions), minus the empty window's marker overhead; and the results."""
-    cases = ondevice.choose_cases(o, t, np.random.default_rng([seed, 1]), orders=list(orders))
+    cases = ondevice.kind_of(o).choose_cases(o, t, np.random.default_rng([seed, 1]), orders=list(orders))
+    if not cases:
+        return None, [], [], ({}, {})
     img = ondevice.image_for(o, t, cases, tag="count")
     run = cross.run(img, count=t.counting == "plugin")
     results = ondevice.parse(o, run.stdout, len(cases))
@@ -168,15 +170,17 @@ def _counts(o: KernelOptions, t: Target, orders, seed: int):
 
 def report_kernel(o: KernelOptions, t: Target, orders=DEFAULT_ORDERS, seed: int = 20261202) -> Entry:
     abi = ondevice.abi_of(o)
-    why = abi.unsupported or abi.report
+    why = abi.unsupported
     if why:
         empty = Stack(0, [], [], False, False, 0)
         return Entry(o.name, t.name, o.scalar, Bytes(0, 0, 0), Bytes(0, 0, 0), empty, empty, {}, {}, [], 0,
                      warnings=[f"not built: {why}"])
     base, only_f, both = _probe(o, t, False, False), _probe(o, t, True, False), _probe(o, t, True, True)
-    img, cases, results, (fcount, scount) = _counts(o, t, orders, seed)
-    row = ondevice.judge(o, t, cases, results)
-    fstack, sstack = call_graph_stack(img, o.name), call_graph_stack(img, f"{o.name}_solve")
+    # a fixed-size kernel runs at its own order only, whatever orders the others are counted at
+    img, cases, results, (fcount, scount) = _counts(o, t, abi.orders or orders, seed)
+    row = ondevice.kind_of(o).judge(o, t, cases, results) if cases else None
+    fstack = call_graph_stack(img or both, o.name)
+    sstack = call_graph_stack(img or both, f"{o.name}_solve")
     by_n = {c.n: r for c, r in zip(cases, results)}
     fstack.measured = max([r.factor_stack for r in by_n.values()] + [0])
     sstack.measured = max([r.solve_stack for r in by_n.values()] + [0])
@@ -184,7 +188,12 @@ def report_kernel(o: KernelOptions, t: Target, orders=DEFAULT_ORDERS, seed: int 
     factor, _ = kernel_bytes(only_f, lib_base)
     factor_solve, runtime_bytes = kernel_bytes(both, lib_base)
     e = Entry(o.name, t.name, o.scalar, factor, factor_solve, fstack, sstack, fcount, scount, undefined(both),
-              runtime_bytes, problems=list(row.problems))
+              runtime_bytes, problems=list(row.problems) if row else [])
+    if not cases:
+        e.warnings.append(f"not counted: no matrix of order {', '.join(map(str, abi.orders or orders))} fits the "
+                          f"row's RAM (max_n = {t.max_n})")
+    if abi.kind == "lanes":
+        e.warnings.append(f"instructions are per call on one whole group of W = {o.lanes} matrices")
     for what, s in (("factor", fstack), ("solve", sstack)):
         if not s.unknown and not s.recursive and not s.dynamic and s.measured > s.worst:
             e.problems.append(f"{what}: the painted stack shows {s.measured} bytes used, more than the call "
@@ -227,6 +236,8 @@ def _stack(s: Stack) -> str:
 
 
 def markdown(entries: list[Entry], orders=DEFAULT_ORDERS) -> str:
+    # a fixed-size kernel is counted at its own order: a column for it too
+    orders = sorted(set(orders) | {n for e in entries for n in e.instructions})
     head = ["kernel", "target", "factor: code / data / bss", "factor + solve", "stack factor: static (measured)",
             "stack solve"] + [f"instructions n = {n} (float)" for n in orders] + ["runtime routines"]
     lines = ["| " + " | ".join(head) + " |", "|" + "---|" * len(head)]
@@ -247,8 +258,8 @@ def markdown(entries: list[Entry], orders=DEFAULT_ORDERS) -> str:
               "(read-only data counted as code). Stack: "
               "the deepest path of gcc's call graph (-fstack-usage frames; +? when a callee's frame is unknown), "
               "in parentheses the most a painted stack showed used. Instructions: executed by the factor on one "
-              "matrix of order n, counted by a QEMU TCG plugin; in parentheses those with a floating-point "
-              "mnemonic.\n")
+              "matrix of order n (a batched kernel: on one group of W matrices), counted by a QEMU TCG plugin; in "
+              "parentheses those with a floating-point mnemonic.\n")
     return "\n".join(lines) + "\n" + legend + ("\n" + "\n".join(notes) + "\n" if notes else "")
 
 
