@@ -59,18 +59,24 @@ class LaneCPrinter(CPrinter):
                 indent + self.guarded([ncols], call)]
 
     def visit_LaneFactorCall(self, s: LaneFactorCall, indent: str) -> list[str]:
-        r0 = self.x(s.block.rows.lo)
+        lo = s.block.rows.lo
+        r0 = self.x(lo)
         m, n = self.x(s.block.rows.size), self.x(s.block.cols.size)
         nl = self.lanes_of()
+        first = lo.is_const() and lo.const == 0     # the panel starts at row 0: its pivots and codes need no offset
+        off = str(lo.const) if lo.is_const() else f"(int)({r0})"
+        end = self.x(lo + s.block.cols.size)
+        shift = [] if first else [f"{indent}        for (i = {r0}; i < {end}; ++i) ipiv[lane * ips + i] += {off};"]
+        code = "r[lane]" if first else f"r[lane] + {off}"
         return [self.comment(f"panel factor with partial pivoting in every lane by the inner loop: from {s.source}",
                              indent),
                 f"{indent}{{",
                 f"{indent}    int r[{self.prefix.upper()}_LANES];",
-                f"{indent}    size_t i, lane;",
-                f"{indent}    {s.routine}({m}, {n}, {self.ptr(s.block)}, ipiv + {r0}, ips, r, {nl});",
-                f"{indent}    for (lane = 0; lane < {nl}; ++lane) {{",
-                f"{indent}        for (i = {r0}; i < {r0} + {n}; ++i) ipiv[lane * ips + i] += (int)({r0});",
-                f"{indent}        if (r[lane] != 0 && info[lane] == 0) info[lane] = r[lane] + (int)({r0});",
+                f"{indent}    size_t {'' if first else 'i, '}lane;",
+                f"{indent}    {s.routine}({m}, {n}, {self.ptr(s.block)}, {'ipiv' if first else f'ipiv + {r0}'}, ips, r, "
+                f"{nl});",
+                f"{indent}    for (lane = 0; lane < {nl}; ++lane) {{"] + shift + [
+                f"{indent}        if (r[lane] != 0 && info[lane] == 0) info[lane] = {code};",
                 f"{indent}    }}",
                 f"{indent}}}"]
 
