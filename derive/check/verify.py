@@ -339,8 +339,8 @@ def _verify_in(options: list[KernelOptions], directory: Path, budget: Budget,
                                             budget.cflags)
         row.seconds = time.perf_counter() - t0
         rows.append(row)
-        progress(f"verify [{i}/{len(options)}] {o.name}: {'pass' if row.passed else 'FAIL'} "
-                 f"({len(set(row.sizes))} sizes up to n={max(row.sizes)}, {row.matrices} matrices, {row.seconds:.1f} s)")
+        progress(f"verify [{i}/{len(options)}] {o.name}: {'pass' if row.passed else 'FAIL'} ({len(set(row.sizes))} "
+                 f"sizes up to n={max(row.sizes)}, {row.matrices} matrices, {row.seconds:.1f} s)")
     return rows
 
 

@@ -172,6 +172,7 @@ class FixedCPrinter(CPrinter):
         return [], f"/= {d}"
 
     def visit_Trsm(self, s: Trsm, indent: str) -> list[str]:
+        loop = self.for_
         T = self.scalar.c_type
         b, t = self.view(s.b), self.view(s.tri)
         # the free index (a column of B for left solves, a row for right ones) goes outermost when it is not the
@@ -185,35 +186,34 @@ class FixedCPrinter(CPrinter):
         del b, t
         if left and s.uplo == "L":
             if free_outer:
-                upd = self.for_("i", "p + 1", m, [f"{B('i', 'j')} -= {U('i', 'p')} * t;"], "")
-                lines = self.for_("j", "0", n, self.for_("p", "0", m, [f"const {T} t = {B('p', 'j')};"] + upd, ""), "")
+                upd = loop("i", "p + 1", m, [f"{B('i', 'j')} -= {U('i', 'p')} * t;"], "")
+                lines = loop("j", "0", n, loop("p", "0", m, [f"const {T} t = {B('p', 'j')};"] + upd, ""), "")
             else:
-                upd = self.for_("j", "0", n, [f"{B('i', 'j')} -= t * {B('p', 'j')};"], "")
-                lines = self.for_("p", "0", m, self.for_("i", "p + 1", m, [f"const {T} t = {U('i', 'p')};"] + upd, ""), "")
+                upd = loop("j", "0", n, [f"{B('i', 'j')} -= t * {B('p', 'j')};"], "")
+                lines = loop("p", "0", m, loop("i", "p + 1", m, [f"const {T} t = {U('i', 'p')};"] + upd, ""), "")
         elif left:
             decl, op = self._divide(s.by, U("p", "p"))
             if free_outer:
-                upd = self.for_("i", "0", "p", [f"{B('i', 'j')} -= {U('i', 'p')} * t;"], "")
+                upd = loop("i", "0", "p", [f"{B('i', 'j')} -= {U('i', 'p')} * t;"], "")
                 body = ["{"] + [f"    {x}" for x in decl + [f"{B('p', 'j')} {op};"]] + ["}"]
-                lines = self.for_("j", "0", n, self.for_("p", "0", m, body + [f"const {T} t = {B('p', 'j')};"] + upd, "",
-                                               down=True), "")
+                lines = loop("j", "0", n, loop("p", "0", m, body + [f"const {T} t = {B('p', 'j')};"] + upd, "",
+                                          down=True), "")
             else:
-                scale = decl + self.for_("j", "0", n, [f"{B('p', 'j')} {op};"], "")
-                upd = self.for_("i", "0", "p", [f"const {T} t = {U('i', 'p')};"] +
-                           self.for_("j", "0", n, [f"{B('i', 'j')} -= t * {B('p', 'j')};"], ""), "")
-                lines = self.for_("p", "0", m, ["{"] + [f"    {x}" for x in scale] + ["}"] + upd, "", down=True)
+                scale = decl + loop("j", "0", n, [f"{B('p', 'j')} {op};"], "")
+                upd = loop("i", "0", "p", [f"const {T} t = {U('i', 'p')};"] +
+                           loop("j", "0", n, [f"{B('i', 'j')} -= t * {B('p', 'j')};"], ""), "")
+                lines = loop("p", "0", m, ["{"] + [f"    {x}" for x in scale] + ["}"] + upd, "", down=True)
         else:   # right, upper: B := B U^-1 (the factor's L21 from A21 and U11)
             decl, op = self._divide(s.by, U("p", "p") if free_outer else U("j", "j"))
             if not free_outer:      # column-major: i (rows of B) contiguous, innermost
-                upd = self.for_("p", "0", "j", [f"const {T} t = {U('p', 'j')};"] +
-                           self.for_("i", "0", m, [f"{B('i', 'j')} -= {B('i', 'p')} * t;"], ""), "")
-                scale = decl + self.for_("i", "0", m, [f"{B('i', 'j')} {op};"], "")
-                lines = self.for_("j", "0", n, upd + ["{"] + [f"    {x}" for x in scale] + ["}"], "")
+                upd = loop("p", "0", "j", [f"const {T} t = {U('p', 'j')};"] +
+                           loop("i", "0", m, [f"{B('i', 'j')} -= {B('i', 'p')} * t;"], ""), "")
+                scale = decl + loop("i", "0", m, [f"{B('i', 'j')} {op};"], "")
+                lines = loop("j", "0", n, upd + ["{"] + [f"    {x}" for x in scale] + ["}"], "")
             else:
-                upd = self.for_("j", "p + 1", n, [f"{B('i', 'j')} -= t * {U('p', 'j')};"], "")
+                upd = loop("j", "p + 1", n, [f"{B('i', 'j')} -= t * {U('p', 'j')};"], "")
                 body = ["{"] + [f"    {x}" for x in decl + [f"{B('i', 'p')} {op};"]] + ["}"]
-                lines = self.for_("i", "0", m, self.for_("p", "0", n, body + [f"const {T} t = {B('i', 'p')};"] + upd, ""),
-                             "")
+                lines = loop("i", "0", m, loop("p", "0", n, body + [f"const {T} t = {B('i', 'p')};"] + upd, ""), "")
         what = "unit-lower" if s.uplo == "L" else "upper"
         return [self.comment(f"trsm ({s.side}, {what}): from {s.source}", indent)] + [indent + x for x in lines]
 

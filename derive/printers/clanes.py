@@ -68,13 +68,13 @@ class LaneCPrinter(CPrinter):
         end = self.x(lo + s.block.cols.size)
         shift = [] if first else [f"{indent}        for (i = {r0}; i < {end}; ++i) ipiv[lane * ips + i] += {off};"]
         code = "r[lane]" if first else f"r[lane] + {off}"
+        piv = "ipiv" if first else f"ipiv + {r0}"
         return [self.comment(f"panel factor with partial pivoting in every lane by the inner loop: from {s.source}",
                              indent),
                 f"{indent}{{",
                 f"{indent}    int r[{self.prefix.upper()}_LANES];",
                 f"{indent}    size_t {'' if first else 'i, '}lane;",
-                f"{indent}    {s.routine}({m}, {n}, {self.ptr(s.block)}, {'ipiv' if first else f'ipiv + {r0}'}, ips, r, "
-                f"{nl});",
+                f"{indent}    {s.routine}({m}, {n}, {self.ptr(s.block)}, {piv}, ips, r, {nl});",
                 f"{indent}    for (lane = 0; lane < {nl}; ++lane) {{"] + shift + [
                 f"{indent}        if (r[lane] != 0 && info[lane] == 0) info[lane] = {code};",
                 f"{indent}    }}",
