@@ -15,7 +15,7 @@ BANNER_HASH = re.compile(r"settings hash|content hash|_SETTINGS_HASH")
 PROTOCOL = "tune-1"      # bump when the way a figure is measured changes, so old figures are not reused
 
 
-def _digest(*parts) -> str:
+def digest(*parts) -> str:
     h = hashlib.sha256()
     for p in parts:
         h.update(p.encode() if isinstance(p, str) else json.dumps(p, sort_keys=True).encode())
@@ -47,7 +47,7 @@ def code_key(files: dict[str, str], flags, target: str) -> str:
         text = "\n".join(ln for ln in text.splitlines() if not BANNER_HASH.search(ln))
         return text.replace(stem, "@").replace(stem.upper(), "@@")
     norm = sorted((f.replace(stem, "@"), plain(t)) for f, t in files.items()) if stem else sorted(files.items())
-    return _digest(PROTOCOL, norm, cc, compiler_version(cc), list(flags), target)
+    return digest(PROTOCOL, norm, cc, compiler_version(cc), list(flags), target)
 
 
 class Cache:
@@ -72,4 +72,4 @@ class Cache:
 
     @staticmethod
     def figure_key(code: str, target: str, n: int, nrhs: int, where: str) -> str:
-        return _digest(code, target, n, nrhs, where)
+        return digest(code, target, n, nrhs, where)

@@ -10,7 +10,7 @@ from derive.check.build import compile_object
 from derive.targets.storage import SCALARS
 from derive.tune import contenders as contmod
 from derive.tune import host
-from derive.tune.cache import machine
+from derive.tune.cache import digest, machine
 from derive.tune.space import Case, CaseError
 
 HOST = "host"
@@ -85,13 +85,9 @@ class TargetBackend:
         changed is measured again."""
         from derive.check import cross
         from derive.check.build import compiler_version
-        h = hashlib.sha256()
-        for f in sorted(cross.TEMPLATES.iterdir()):
-            if f.is_file():
-                h.update(f.name.encode() + b"\0" + f.read_bytes() + b"\0")
-        for mod in (cross, self.report, self.ondevice):
-            h.update(Path(mod.__file__).read_bytes())
-        return repr(self.row) + compiler_version(cross.cc_of(self.row)[0]) + h.hexdigest()
+        sources = [(f.name, f.read_text()) for f in sorted(cross.TEMPLATES.iterdir()) if f.is_file()]
+        sources += [Path(mod.__file__).read_text() for mod in (cross, self.report, self.ondevice)]
+        return repr(self.row) + compiler_version(cross.cc_of(self.row)[0]) + digest(*sources)
 
     def check(self, case: Case, objective) -> None:
         if objective.name not in self.objectives:
