@@ -10,7 +10,7 @@ from derive.check.accuracy import componentwise_ratio, factor_ratio, solve_ratio
 from derive.check.cross import ToolMissing
 from derive.check.harness import CANARY, GUARD, interleave_index
 from derive.check.matrices import lapack_ge_matrix
-from derive.check.ondevice import LAPACK_ORDERS, PIV_CANARY, Result, TargetRow, _same_bits, verdict
+from derive.check.ondevice import LAPACK_ORDERS, PIV_CANARY, Result, TargetRow, _same_bits, abi_of, verdict
 from derive.check.verify_lanes import sizes_of
 from derive.options import KernelOptions
 from derive.targets.storage import SCALARS
@@ -57,6 +57,11 @@ def getrf(a: np.ndarray):
     return (scipy.linalg.lapack.sgetrf if a.dtype == np.float32 else scipy.linalg.lapack.dgetrf)(a)
 
 
+def _codes(mats: np.ndarray) -> list[int]:
+    """LAPACK getrf's code for each matrix of a batch (0 for n = 0, where there is nothing to factor)."""
+    return [getrf(m)[2] if m.size else 0 for m in mats]
+
+
 def _case(o: KernelOptions, mats: np.ndarray, rng, judge: str, expect, **kw) -> LaneCase:
     count, n = mats.shape[:2]
     w, dtype = o.lanes, mats.dtype
@@ -94,11 +99,11 @@ def choose_cases(o: KernelOptions, t: Target, rng, per_size: int = 2, orders=Non
     if orders is not None:
         # counting (`luforge report`): per order one whole group of W random matrices, so one call's count is
         # the cost of W systems; a fixed-size kernel has its own order only
-        fixed = getattr(o, "size", None)
+        own = abi_of(o).orders
         for n in orders:
-            if (fixed is None or n == fixed) and _count(o, t, n, o.lanes) == o.lanes:
+            if (own is None or n in own) and _count(o, t, n, o.lanes) == o.lanes:
                 mats = rng.standard_normal((o.lanes, n, n)).astype(dtype)
-                cases.append(_case(o, mats, rng, "random", [getrf(m)[2] if n else 0 for m in mats]))
+                cases.append(_case(o, mats, rng, "random", _codes(mats)))
         return cases
     sizes = [n for n in sizes_of(o) if _count(o, t, n, per_size * o.lanes + 1)]
     for n in sizes:
@@ -106,7 +111,7 @@ def choose_cases(o: KernelOptions, t: Target, rng, per_size: int = 2, orders=Non
         zero = int(rng.integers(0, len(mats)))
         if n:
             mats[zero][:, n // 2] = 0
-        cases.append(_case(o, mats, rng, "random", [getrf(m)[2] if n else 0 for m in mats]))
+        cases.append(_case(o, mats, rng, "random", _codes(mats)))
     # the NaN batch at the largest size up to 9 (a few columns past the NaN's row and column), else the smallest
     nan_n = max([n for n in sizes if 0 < n <= 9] or [n for n in sizes if n][:1] or [0])
     clean = next((k for k, c in enumerate(cases) if c.n == nan_n and c.count > 1), None)
