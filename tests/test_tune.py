@@ -101,6 +101,18 @@ def test_cache_key_ignores_the_name_but_not_the_code():
     assert code_key(fa, (), "host") != code_key(fc, (), "host") != code_key(fc, ("-O3",), "host")
 
 
+
+def test_cache_keys_frame_their_parts():
+    """Every cache (objects, modules, cross builds, tune figures) keys with derive.digest: parts are framed, so
+    moving text from one part to the next gives another key; text and its UTF-8 bytes are the same part; a mapping's
+    key order does not matter; a list of flags is not its one flag."""
+    from derive.digest import digest
+    assert digest("ab", "c") != digest("a", "bc") != digest("abc")
+    assert digest("ab", "c") == digest(b"ab", "c")
+    assert digest({"x": 1, "y": [2, 3]}) == digest({"y": [2, 3], "x": 1})
+    assert digest(["-O3"]) != digest("-O3") and digest([8]) != digest([9])
+    assert len(digest()) == 64 and digest() != digest("")
+
 # -- ranking ------------------------------------------------------------------------------------------------------
 
 def test_pareto_layers():

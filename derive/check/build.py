@@ -3,7 +3,6 @@ Kernel sources are compiled alone with the strict flags they promise; the cdef i
 from __future__ import annotations
 
 import fcntl
-import hashlib
 import importlib.util
 import os
 import shlex
@@ -13,6 +12,8 @@ import sys
 import tempfile
 from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
+
+from derive.digest import digest
 
 STRICT_FLAGS = ("-std=c99", "-Wall", "-Wextra", "-Werror", "-pedantic")
 OPT_FLAGS = ("-O2", "-fPIC")
@@ -79,14 +80,6 @@ def run_compiler(args: list[str], what: str, **kw) -> subprocess.CompletedProces
     return res
 
 
-def _digest(*parts: str | bytes) -> str:
-    h = hashlib.sha256()
-    for p in parts:
-        h.update(p.encode() if isinstance(p, str) else p)
-        h.update(b"\0")
-    return h.hexdigest()
-
-
 _VERSION_CACHE: dict[str, str] = {}
 
 
@@ -116,7 +109,7 @@ def compile_object(name: str, c_text: str, h_text: str, flags: tuple[str, ...] =
     """Compile one kernel with the strict flags; returns the cached object file."""
     cc, *cc_flags = compiler_words()
     flags = (*cc_flags, *flags)
-    key = _digest(c_text, h_text, cc, compiler_version(cc), *STRICT_FLAGS, *flags)
+    key = digest(c_text, h_text, cc, compiler_version(cc), *STRICT_FLAGS, *flags)
     root = cache_root() / "obj" / key[:2] / key
     obj = root / f"{name}.o"
     if obj.exists():
@@ -148,7 +141,7 @@ def build(kernels: list[tuple[str, str, str]], flags: tuple[str, ...] = OPT_FLAG
     jobs = jobs or os.cpu_count() or 1
     with ThreadPoolExecutor(jobs) as pool:
         objs = list(pool.map(lambda k: compile_object(k[0], k[1], k[2], flags), kernels))
-    key = _digest(*(str(o) for o in objs), cffi.__version__, sys.version, *flags)
+    key = digest(*(str(o) for o in objs), cffi.__version__, sys.version, *flags)
     modname = f"_luforge_{key[:20]}"
     root = cache_root() / "mod" / key[:20]
     with _Lock(root.with_suffix(".lock")):
@@ -185,7 +178,7 @@ def build_directory(directory: Path, names: list[str], flags: tuple[str, ...] = 
 
 def load_python(path: Path):
     """Import a generated NumPy kernel module from its file."""
-    name = f"_luforge_py_{path.stem}_{_digest(path.read_text())[:12]}"
+    name = f"_luforge_py_{path.stem}_{digest(path.read_text())[:12]}"
     spec = importlib.util.spec_from_file_location(name, path)
     mod = importlib.util.module_from_spec(spec)
     spec.loader.exec_module(mod)

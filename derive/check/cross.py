@@ -11,7 +11,8 @@ from pathlib import Path
 
 import jinja2
 
-from derive.check.build import _digest, _Lock, cache_root, compiler, compiler_version
+from derive.check.build import _Lock, cache_root, compiler, compiler_version
+from derive.digest import digest
 from derive.targets.table import Target
 
 TEMPLATES = Path(__file__).resolve().parents[2] / "templates" / "targets"
@@ -96,7 +97,7 @@ def build_image(t: Target, name: str, sources: dict[str, str], kernel: str, tag:
         files[s] = (TEMPLATES / s).read_text()
     if t.image == "bare":
         files["image.ld"] = linker_script(t)
-    key = _digest(t.name, repr(t), compiler_version(cc[0]), tag, *(f"{k}\0{v}" for k, v in sorted(files.items())))
+    key = digest(t.name, repr(t), compiler_version(cc[0]), tag, *(f"{k}\0{v}" for k, v in sorted(files.items())))
     root = cache_root() / "cross" / key[:2] / key
     elf = root / f"{name}.elf"
     obj = root / f"{Path(kernel).stem}.o"
@@ -136,7 +137,7 @@ def plugin() -> Path:
     """The instruction-counting TCG plugin, built once with the host compiler (cached by source)."""
     src = (TEMPLATES / "count_plugin.c").read_text()
     cc = compiler()
-    key = _digest(src, compiler_version(cc))
+    key = digest(src, compiler_version(cc))
     so = cache_root() / "plugin" / key[:16] / "count_plugin.so"
     if so.exists():
         return so

@@ -2,7 +2,6 @@
 by everything that determines the figure: the emitted code, the compiler and its flags, the target, n and nrhs."""
 from __future__ import annotations
 
-import hashlib
 import json
 import os
 import platform
@@ -10,17 +9,10 @@ import re
 from pathlib import Path
 
 from derive.check.build import cache_root, compiler, compiler_version
+from derive.digest import digest
 
 BANNER_HASH = re.compile(r"settings hash|content hash|_SETTINGS_HASH")
 PROTOCOL = "tune-1"      # bump when the way a figure is measured changes, so old figures are not reused
-
-
-def digest(*parts) -> str:
-    h = hashlib.sha256()
-    for p in parts:
-        h.update(p.encode() if isinstance(p, str) else json.dumps(p, sort_keys=True).encode())
-        h.update(b"\0")
-    return h.hexdigest()
 
 
 def machine() -> str:

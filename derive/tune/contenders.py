@@ -2,12 +2,12 @@
 LAPACK getrf/getrs (through OpenBLAS) and the bench's textbook loop. Each copies its input like the kernels do."""
 from __future__ import annotations
 
-import hashlib
 import shutil
 import subprocess
 from pathlib import Path
 
 from derive.check.build import cache_root
+from derive.digest import digest
 from derive.tune.host import Contender
 
 EIGEN_INCLUDE = ("/usr/include/eigen3", "/usr/local/include/eigen3")
@@ -51,7 +51,7 @@ def eigen(T: str, layout: str, sizes, nrhs: int, flags: tuple[str, ...], pivoted
         return None
     src = _eigen_source(T, layout, sizes, nrhs)
     cflags = [f for f in flags if f not in ("-std=c99",)]
-    key = hashlib.sha256((src + cxx + " ".join(cflags)).encode()).hexdigest()[:24]
+    key = digest(src, cxx, cflags)[:24]
     obj = cache_root() / "tune" / "eigen" / f"{key}.o"
     if not obj.exists():
         obj.parent.mkdir(parents=True, exist_ok=True)
@@ -119,7 +119,7 @@ def textbook(T: str, sizes, nrhs: int, flags: tuple[str, ...], pivoted: bool) ->
         return None
     from derive.check.build import compiler
     src = TEXTBOOK.read_text()
-    key = hashlib.sha256((src + compiler() + " ".join(flags)).encode()).hexdigest()[:24]
+    key = digest(src, compiler(), list(flags))[:24]
     obj = cache_root() / "tune" / "textbook" / f"{key}.o"
     if not obj.exists():
         obj.parent.mkdir(parents=True, exist_ok=True)

@@ -2,7 +2,6 @@
 instruction counts, bytes and stack, by the targets' own build-and-run modules). One backend class per kind."""
 from __future__ import annotations
 
-import hashlib
 import importlib
 from pathlib import Path
 
@@ -10,7 +9,8 @@ from derive.check.build import compile_object
 from derive.targets.storage import SCALARS
 from derive.tune import contenders as contmod
 from derive.tune import host
-from derive.tune.cache import digest, machine
+from derive.digest import digest
+from derive.tune.cache import machine
 from derive.tune.space import Case, CaseError
 
 HOST = "host"
@@ -38,9 +38,8 @@ class HostBackend:
 
     def contender_key(self, case: Case, flags) -> str:
         # the contenders' own sources and the driver's protocol are part of what their figures depend on
-        blob = repr((case.scalar, case.layout, case.pivoting, case.nrhs, list(flags), Path(contmod.__file__).read_text(),
-                     Path(host.__file__).read_text()))
-        return hashlib.sha256(blob.encode()).hexdigest()
+        return digest(case.scalar, case.layout, case.pivoting, case.nrhs, list(flags),
+                      Path(contmod.__file__).read_text(), Path(host.__file__).read_text())
 
     def measure(self, case: Case, n: int, kernels: list[tuple[str, dict]], flags, contenders: bool = True):
         T = SCALARS[case.scalar].c_type
