@@ -329,6 +329,24 @@ def test_report_counts_a_fixed_order_missing_from_orders(capsys, tmp_path):
     assert re.fullmatch(r" [\d,]+ \([\d,]+\) ", cells[" instructions n = 6 (float) "])
 
 
+def test_report_says_when_no_matrix_fits_the_row(capsys, tmp_path):
+    """A fixed order beyond what the row's RAM holds (cortex-m0: max_n = 16; n = 24 here): bytes and the static
+    stack are still reported, the instruction columns stay empty, and the report says why instead of failing."""
+    t = get("cortex-m0")
+    _usable(t)
+    assert t.max_n < 24
+    spec = tmp_path / "s.toml"
+    spec.write_text('[[kernel]]\nname = "tt_f24"\nloop = "right-looking"\nscalar = "float"\npivoting = "partial"\n'
+                    'size = 24\n')
+    out = tmp_path / "r.json"
+    assert main(["report", str(spec), "--target", "cortex-m0", "--orders", "4", "--json", str(out)]) == 0
+    md = capsys.readouterr().out
+    assert f"not counted: no matrix of order 24 fits the row's RAM (max_n = {t.max_n})" in md
+    data = json.loads(out.read_text())[0]
+    assert data["kernel"] == "tt_f24" and data["instructions"] == {} and not data["problems"]
+    assert data["factor"]["text"] > 0 and data["factor_stack"]["worst"] > 0
+
+
 @pytest.mark.skipif(shutil.which("qemu-system-arm") is None, reason="qemu-system-arm not installed")
 def test_plugin_counts_a_known_instruction_sequence(tmp_path):
     """Two marked windows around code whose instructions are known from the Armv7-M encoding."""
