@@ -128,6 +128,40 @@ def test_exact_zero_pivots_beside_regular_lanes(lanes, name):
 
 
 @pytest.mark.parametrize("name", KERNELS)
+def test_exact_factors_in_every_lane(lanes, name):
+    """Matrices whose factors no ordering rounds (matrices.exact_factors), each lane its own, the last group
+    partial: every lane's factors and pivots equal the known ones bit for bit, in C and in the NumPy twin, and
+    verify's exact batch finds nothing to report."""
+    from derive.check.verify import Row
+    from derive.check.verify_lanes import exact_batch
+    ck, py, o = lanes[name]
+    n = o.size or 7
+    row = Row(name, "lanes", [n])
+    exact_batch(ck, py, n, 2 * o.lanes + 1, np.random.default_rng(11), row)
+    assert row.problems == [] and row.matrices == 2 * o.lanes + 1
+
+
+def test_exact_batch_catches_one_ulp_in_one_lane(lanes):
+    """The exact batch is a check that can fail: a kernel whose factors are one unit in the last place off in a
+    single entry of a single lane (well inside every ratio and Higham's bound) is reported, by matrix."""
+    from derive.check.verify import Row
+    from derive.check.verify_lanes import exact_batch
+    ck, py, o = lanes[KERNELS[0]]
+
+    class OneUlpOff:
+        dtype = ck.dtype
+
+        def factor(self, mats):
+            code, info, lu, ipiv, ok = ck.factor(mats)
+            lu[2, 3, 1] = np.nextafter(lu[2, 3, 1], np.inf)
+            return code, info, lu, ipiv, ok
+
+    row = Row(KERNELS[0], "lanes", [6])
+    exact_batch(OneUlpOff(), py, 6, o.lanes + 1, np.random.default_rng(11), row)
+    assert row.problems == ["n=6, exact factors: matrices [2] differ from their exactly known factors or pivots"]
+
+
+@pytest.mark.parametrize("name", KERNELS)
 def test_nan_in_one_lane_touches_no_other(lanes, name):
     ck, py, o = lanes[name]
     rng = np.random.default_rng(11)

@@ -137,7 +137,7 @@ def test_row_runs_lanes_kernels_bit_identical_to_host(row, lane_host):
     _usable(t)
     for k, o in enumerate(LANE_KERNELS):
         cases = ondevice_lanes.choose_cases(o, t, np.random.default_rng([7, k]), per_size=1)
-        assert {c.judge for c in cases} == {"random", "nan", "lapack"}
+        assert {c.judge for c in cases} == {"random", "nan", "lapack", "exact"}
         assert all(c.count % o.lanes for c in cases if c.judge != "lapack")      # every batch ends partial
         # LAPACK TESTING/LIN/dchkge.f: types 5, 6, 7 are singular with INFO = IZERO, side by side with the others
         assert any(c.expect.any() and not c.expect.all() for c in cases if c.judge == "lapack")
@@ -209,6 +209,15 @@ def test_lanes_judge_catches_an_unused_lane_a_code_and_a_leaking_nan(lane_host):
         other = (c.victim + 1) % c.count
         r.a_buf[c.a_idx[other, 0, 0]] = np.nan
     assert any("NaN changed another" in p for p in tampered(nan, leak))
+
+    # one unit in the last place of one entry of one lane of a batch with exactly known factors: within every
+    # ratio, and no host build to compare with here, so only the exact factors can see it
+    exact = next(i for i, c in enumerate(cases) if c.judge == "exact")
+
+    def one_ulp(c, r):
+        r.a_buf[c.a_idx[1, 2, 1]] = np.nextafter(r.a_buf[c.a_idx[1, 2, 1]], np.inf)
+    assert tampered(exact, one_ulp) == [f"n={cases[exact].n} (exact): matrices [1] differ from their exactly "
+                                        "known factors or pivots"]
 
 
 def test_lanes_without_scipy_is_one_line_naming_it(monkeypatch, capsys, tmp_path):

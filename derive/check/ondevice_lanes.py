@@ -9,8 +9,8 @@ import numpy as np
 from derive.check.accuracy import componentwise_ratio, factor_ratio, solve_ratio
 from derive.check.cross import ToolMissing
 from derive.check.harness import CANARY, GUARD, interleave_index
-from derive.check.matrices import lapack_ge_matrix
-from derive.check.ondevice import LAPACK_ORDERS, PIV_CANARY, Result, TargetRow, _same_bits, abi_of, verdict
+from derive.check.matrices import exact_factors, lapack_ge_matrix
+from derive.check.ondevice import EXACT_ORDERS, LAPACK_ORDERS, PIV_CANARY, Result, TargetRow, _same_bits, abi_of, verdict
 from derive.check.verify_lanes import sizes_of
 from derive.options import KernelOptions
 from derive.targets.storage import SCALARS
@@ -28,9 +28,11 @@ class LaneCase:
     b_idx: np.ndarray           # (count, n)
     expect: np.ndarray          # (count,) the exact code each matrix must get
     judge: str = "random"       # "random" (getrf's pivots, ratios, Higham), "lapack" (dchkge: codes, dget01,
-                                # dget02), "nan" (a NaN in lane `victim`: every other lane as in case `twin`)
+                                # dget02), "nan" (a NaN in lane `victim`: every other lane as in case `twin`),
+                                # "exact" (every lane's factors and pivots equal to `exact`, bit for bit)
     twin: int = -1
     victim: int = -1
+    exact: tuple | None = None  # for "exact": (lu (count, n, n), ipiv (count, n)) known without rounding
 
     @property
     def count(self) -> int:
@@ -92,8 +94,9 @@ def _count(o: KernelOptions, t: Target, n: int, wanted: int) -> int | None:
 def choose_cases(o: KernelOptions, t: Target, rng, per_size: int = 2, orders=None) -> list[LaneCase]:
     """verify_lanes's batches for the sizes that fit the row: random matrices in per_size whole groups and one
     more, one lane with a zero column (an exact zero pivot); one batch again with a NaN in another lane; and
-    per LAPACK order one batch of dchkge's GE types side by side, singular ones with their exact codes. With
-    `orders`: one whole group of random matrices per order (for counting)."""
+    per LAPACK order one batch of dchkge's GE types side by side, singular ones with their exact codes; per
+    order of host verify's exact ones that fits, W + 1 matrices with exactly known factors, each lane its own
+    (a partial last group). With `orders`: one whole group of random matrices per order (for counting)."""
     dtype = np.dtype(SCALARS[o.scalar].numpy)
     cases: list[LaneCase] = []
     if orders is not None:
@@ -129,6 +132,13 @@ def choose_cases(o: KernelOptions, t: Target, rng, per_size: int = 2, orders=Non
             continue
         made = [lapack_ge_matrix(i, n, dtype, rng) for i in types]
         cases.append(_case(o, np.stack([a for a, _ in made]), rng, "lapack", [e for _, e in made]))
+    for n in (EXACT_ORDERS if getattr(o, "size", None) is None else (o.size,)):
+        count = _count(o, t, n, o.lanes + 1)
+        if not n or count is None:
+            continue
+        made = [exact_factors(n, dtype, rng, True) for _ in range(count)]
+        cases.append(_case(o, np.stack([a for a, _, _ in made]), rng, "exact", [0] * count,
+                           exact=(np.stack([lu for _, lu, _ in made]), np.stack([p for _, _, p in made]))))
     return cases
 
 
@@ -186,6 +196,11 @@ def judge(o: KernelOptions, t: Target, cases: list[LaneCase], results: list[Resu
                                       for got, want in zip((lu, x), ref[2:])) or \
                     not all(np.array_equal(got[rest], want[rest]) for got, want in zip((info, ipiv), ref[:2])):
                 problems.append(f"{tag}: the NaN changed another matrix's factors, pivots, code or solution")
+        if c.judge == "exact":
+            off = [m for m in range(count) if not (np.array_equal(lu[m], c.exact[0][m])
+                                                   and np.array_equal(ipiv[m], c.exact[1][m]))]
+            if off:
+                problems.append(f"{tag}: matrices {off} differ from their exactly known factors or pivots")
         for m in range(count if n and c.judge != "nan" else 0):
             if c.judge == "random" and not np.array_equal(ipiv[m], getrf(c.mats[m])[1]):
                 problems.append(f"{tag}: matrix {m}: pivots differ from LAPACK getrf's")

@@ -6,6 +6,7 @@ import numpy as np
 
 from derive.check.accuracy import componentwise_ratio, factor_ratio, solve_ratio
 from derive.check.harness import LaneKernel
+from derive.check.matrices import exact_factors
 from derive.check.sanitize import driver_prologue
 from derive.options import KernelOptions
 from derive.targets.storage import LAYOUTS, SCALARS
@@ -59,9 +60,33 @@ def check_lanes(s, budget, rng):
             rest = [m for m in range(count) if m != victim]
             if not (np.array_equal(lu2[rest], lu[rest]) and np.array_equal(ipiv2[rest], ipiv[rest])):
                 row.problems.append(f"n={n}: a NaN in matrix {victim} changed another matrix's factors")
+    for n in sorted(set(n for n in row.sizes if n)):
+        exact_batch(lk, py, n, budget.per_size * o.lanes + 1, rng, row)
     # LAPACK TESTING/dtest.in: THRESH = 30; Higham 2002, Thm 9.3: componentwise <= 1
     from derive.check.verify import finish
     return finish(row)
+
+
+def exact_batch(lk: LaneKernel, py, n: int, count: int, rng, row) -> None:
+    """count matrices with exactly known factors side by side, each with its own row order (matrices.exact_factors):
+    every lane's factors and pivots must equal them bit for bit, in C and in the NumPy twin. Each pivot is a power
+    of two, so the reciprocal a lanes kernel multiplies by is exact and the promise holds for it as well."""
+    made = [exact_factors(n, lk.dtype, rng, True) for _ in range(count)]
+    mats = np.stack([a for a, _, _ in made])
+    want_lu = np.stack([lu for _, lu, _ in made])
+    want_piv = np.stack([p for _, _, p in made])
+    code, info, lu, ipiv, ok = lk.factor(mats)
+    row.matrices += count
+    wrong = [m for m in range(count)
+             if not (np.array_equal(lu[m], want_lu[m]) and np.array_equal(ipiv[m], want_piv[m]))]
+    if code != 0 or not ok or info.any():
+        row.problems.append(f"n={n}, exact factors: returned {code}, codes {list(info)} or wrote outside the matrices")
+    if wrong:
+        row.problems.append(f"n={n}, exact factors: matrices {wrong} differ from their exactly known factors or pivots")
+    pm = mats.copy()
+    pinfo, pipiv = py.factor(pm)
+    if pinfo.any() or not (np.array_equal(pm, want_lu) and np.array_equal(pipiv, want_piv)):
+        row.problems.append(f"n={n}, exact factors: the NumPy twin differs from the exactly known factors")
 
 
 def lanes_driver(o: KernelOptions, sizes: list[int]) -> str:
