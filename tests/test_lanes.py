@@ -130,7 +130,7 @@ def test_exact_zero_pivots_beside_regular_lanes(lanes, name):
 @pytest.mark.parametrize("name", KERNELS)
 def test_exact_factors_in_every_lane(lanes, name):
     """Matrices whose factors no ordering rounds (matrices.exact_factors), each lane its own, the last group
-    partial: every lane's factors and pivots equal the known ones bit for bit, in C and in the NumPy twin, and
+    partial: every lane's factors and pivots equal the known ones exactly, in C and in the NumPy twin, and
     verify's exact batch finds nothing to report."""
     from derive.check.verify import Row
     from derive.check.verify_lanes import exact_batch

@@ -10,7 +10,8 @@ from derive.check.accuracy import componentwise_ratio, factor_ratio, solve_ratio
 from derive.check.cross import ToolMissing
 from derive.check.harness import CANARY, GUARD, interleave_index
 from derive.check.matrices import exact_factors, lapack_ge_matrix
-from derive.check.ondevice import EXACT_ORDERS, LAPACK_ORDERS, PIV_CANARY, Result, TargetRow, _same_bits, abi_of, verdict
+from derive.check.ondevice import (EXACT_ORDERS, LAPACK_ORDERS, PIV_CANARY, Result, TargetRow, _same_bits, abi_of,
+                                   verdict)
 from derive.check.verify_lanes import sizes_of
 from derive.options import KernelOptions
 from derive.targets.storage import SCALARS
@@ -29,7 +30,7 @@ class LaneCase:
     expect: np.ndarray          # (count,) the exact code each matrix must get
     judge: str = "random"       # "random" (getrf's pivots, ratios, Higham), "lapack" (dchkge: codes, dget01,
                                 # dget02), "nan" (a NaN in lane `victim`: every other lane as in case `twin`),
-                                # "exact" (every lane's factors and pivots equal to `exact`, bit for bit)
+                                # "exact" (every lane's factors and pivots equal to `exact`, exactly)
     twin: int = -1
     victim: int = -1
     exact: tuple | None = None  # for "exact": (lu (count, n, n), ipiv (count, n)) known without rounding

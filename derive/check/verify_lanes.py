@@ -69,7 +69,7 @@ def check_lanes(s, budget, rng):
 
 def exact_batch(lk: LaneKernel, py, n: int, count: int, rng, row) -> None:
     """count matrices with exactly known factors side by side, each with its own row order (matrices.exact_factors):
-    every lane's factors and pivots must equal them bit for bit, in C and in the NumPy twin. Each pivot is a power
+    every lane's factors and pivots must equal them exactly, in C and in the NumPy twin. Each pivot is a power
     of two, so the reciprocal a lanes kernel multiplies by is exact and the promise holds for it as well."""
     made = [exact_factors(n, lk.dtype, rng, True) for _ in range(count)]
     mats = np.stack([a for a, _, _ in made])
