@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import re
 
-from derive.lowering.ir import Call, Kernel, Lin, Loop, Param, Routine
+from derive.lowering.ir import Call, Kernel, Lin, Loop, Param, Routine, walk
 from derive.lowering.lanes import Groups, LaneFactorCall, OverLanes, SelectPivot, SelectSwaps
 from derive.printers.cprinter import CPrinter
 from derive.targets.storage import Layout, Scalar
@@ -46,7 +46,7 @@ class LaneCPrinter(CPrinter):
         r0, r1, c0 = self.x(s.column.rows.lo), self.x(s.column.rows.hi), self.x(s.column.cols.lo)
         col = f"&{self.at(s.column.matrix, s.column.rows.lo, s.column.cols.lo)}"
         return [self.comment(f"partial pivoting on column {c0} in every lane, by selects: from {s.source}", indent),
-                f"{indent}{fn}({r1} - {r0}, {col}, {self.ld(s.column.matrix)}, {r0}, ipiv, ips, info, "
+                f"{indent}{fn}({r1} - {r0}, {col}, {self.ld(s.column.matrix)}, {r0}, ipiv, ips, code, "
                 f"{self.lanes_of()});"]
 
     def visit_SelectSwaps(self, s: SelectSwaps, indent: str) -> list[str]:
@@ -158,16 +158,31 @@ class LaneCPrinter(CPrinter):
                 out.append("    size_t k;")
                 if any(lp.step > 1 for lp in loops):
                     out.append("    size_t kb;")
-            if r.on_zero == "record":
+            if self.pivots_here(r):
+                # the codes as integer lanes while the pivot steps run (no lane-by-lane test per step), written
+                # to info once at the end
+                P = self.prefix.upper()
+                out += [f"    {self.prefix}_m code[{P}_NC];", "    size_t l;",
+                        f"    for (l = 0; l < {P}_NC; ++l) code[l] = {P}_ISET(0);"]
+            elif r.on_zero == "record":
                 out += ["    size_t l;", "    for (l = 0; l < nl; ++l) info[l] = 0;"]
         for s in r.body:
             out += self.visit(s, "    ")
+        if not public and self.pivots_here(r):
+            P = self.prefix.upper()
+            out.append(f"    for (l = 0; l < nl; ++l) info[l] = (int){P}_LANE(code[l / {P}_VL], l % {P}_VL);")
         out.append("    return 0;")
         if not public:
             text = re.sub(r"/\*.*?\*/", "", "\n".join(out), flags=re.S)
             unused = [p.name for p in r.params if not re.search(rf"\b{p.name}\b", text)]
             out = [f"    (void){n};  /* not needed by this loop ordering */" for n in unused] + out
         return out
+
+    @staticmethod
+    def pivots_here(r: Routine) -> bool:
+        """The routine takes pivot steps itself (not through a panel routine it calls): its codes are kept as
+        integer lanes."""
+        return r.on_zero == "record" and any(isinstance(s, SelectPivot) for s in walk(r.body))
 
     def lane_argument_checks(self, r: Routine) -> list[str]:
         """Negative codes name the bad argument by its 1-based position (as the header documents)."""
