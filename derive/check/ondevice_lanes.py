@@ -9,10 +9,10 @@ import numpy as np
 from derive.check.accuracy import componentwise_ratio, factor_ratio, solve_ratio
 from derive.check.cross import ToolMissing
 from derive.check.harness import CANARY, GUARD, interleave_index
-from derive.check.matrices import exact_factors, lapack_ge_matrix
+from derive.check.matrices import lapack_ge_matrix
 from derive.check.ondevice import (EXACT_ORDERS, LAPACK_ORDERS, PIV_CANARY, Result, TargetRow, _same_bits, abi_of,
                                    verdict)
-from derive.check.verify_lanes import sizes_of
+from derive.check.verify_lanes import exact_stack, not_exact, sizes_of
 from derive.options import KernelOptions
 from derive.targets.storage import SCALARS
 from derive.targets.table import Target
@@ -137,9 +137,8 @@ def choose_cases(o: KernelOptions, t: Target, rng, per_size: int = 2, orders=Non
         count = _count(o, t, n, o.lanes + 1)
         if not n or count is None:
             continue
-        made = [exact_factors(n, dtype, rng, True) for _ in range(count)]
-        cases.append(_case(o, np.stack([a for a, _, _ in made]), rng, "exact", [0] * count,
-                           exact=(np.stack([lu for _, lu, _ in made]), np.stack([p for _, _, p in made]))))
+        mats, lu, ipiv = exact_stack(n, dtype, rng, count)
+        cases.append(_case(o, mats, rng, "exact", [0] * count, exact=(lu, ipiv)))
     return cases
 
 
@@ -198,8 +197,7 @@ def judge(o: KernelOptions, t: Target, cases: list[LaneCase], results: list[Resu
                     not all(np.array_equal(got[rest], want[rest]) for got, want in zip((info, ipiv), ref[:2])):
                 problems.append(f"{tag}: the NaN changed another matrix's factors, pivots, code or solution")
         if c.judge == "exact":
-            off = [m for m in range(count) if not (np.array_equal(lu[m], c.exact[0][m])
-                                                   and np.array_equal(ipiv[m], c.exact[1][m]))]
+            off = not_exact(lu, ipiv, *c.exact)
             if off:
                 problems.append(f"{tag}: matrices {off} differ from their exactly known factors or pivots")
         for m in range(count if n and c.judge != "nan" else 0):

@@ -67,18 +67,27 @@ def check_lanes(s, budget, rng):
     return finish(row)
 
 
+def exact_stack(n: int, dtype, rng, count: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """count pivoted matrices with exactly known factors (matrices.exact_factors), each with its own row order:
+    (mats, lu, ipiv) stacked as a batch. Each pivot is a power of two, so the reciprocal a lanes kernel
+    multiplies by is exact and the factors are promised to a lanes kernel too."""
+    made = [exact_factors(n, dtype, rng, True) for _ in range(count)]
+    return tuple(np.stack([m[k] for m in made]) for k in range(3))
+
+
+def not_exact(lu: np.ndarray, ipiv: np.ndarray, want_lu: np.ndarray, want_piv: np.ndarray) -> list[int]:
+    """The matrices of a batch whose factors or pivots differ from the exactly known ones."""
+    return [m for m in range(len(want_lu))
+            if not (np.array_equal(lu[m], want_lu[m]) and np.array_equal(ipiv[m], want_piv[m]))]
+
+
 def exact_batch(lk: LaneKernel, py, n: int, count: int, rng, row) -> None:
-    """count matrices with exactly known factors side by side, each with its own row order (matrices.exact_factors):
-    every lane's factors and pivots must equal them exactly, in C and in the NumPy twin. Each pivot is a power
-    of two, so the reciprocal a lanes kernel multiplies by is exact and the promise holds for it as well."""
-    made = [exact_factors(n, lk.dtype, rng, True) for _ in range(count)]
-    mats = np.stack([a for a, _, _ in made])
-    want_lu = np.stack([lu for _, lu, _ in made])
-    want_piv = np.stack([p for _, _, p in made])
+    """count matrices with exactly known factors side by side (exact_stack): every lane's factors and pivots
+    must equal them exactly, in C and in the NumPy twin."""
+    mats, want_lu, want_piv = exact_stack(n, lk.dtype, rng, count)
     code, info, lu, ipiv, ok = lk.factor(mats)
     row.matrices += count
-    wrong = [m for m in range(count)
-             if not (np.array_equal(lu[m], want_lu[m]) and np.array_equal(ipiv[m], want_piv[m]))]
+    wrong = not_exact(lu, ipiv, want_lu, want_piv)
     if code != 0 or not ok or info.any():
         row.problems.append(f"n={n}, exact factors: returned {code}, codes {list(info)} or wrote outside the matrices")
     if wrong:
