@@ -283,17 +283,19 @@ def test_report_agrees_with_an_independent_build_and_counts_reproducibly(tmp_pat
     assert again.instructions == e.instructions and again.solve_instructions == e.solve_instructions
 
 
+def _report(capsys, tmp_path, row: str, kernel: str, orders: str):
+    """`luforge report` of one spec entry (TOML lines after [[kernel]]) on a row: (markdown, JSON entries)."""
+    _usable(get(row))
+    spec, out = tmp_path / "s.toml", tmp_path / "r.json"
+    spec.write_text("[[kernel]]\n" + kernel)
+    assert main(["report", str(spec), "--target", row, "--orders", orders, "--json", str(out)]) == 0
+    return capsys.readouterr().out, json.loads(out.read_text())
+
+
 def test_report_warns_about_software_double_on_cortex_m4f(capsys, tmp_path):
-    t = get("cortex-m4f")
-    _usable(t)
-    spec = tmp_path / "s.toml"
-    spec.write_text('[[kernel]]\nname = "tt_d"\nloop = "right-looking"\nblock = 1\nscalar = "double"\n'
-                    'pivoting = "partial"\n')
-    out = tmp_path / "r.json"
-    assert main(["report", str(spec), "--target", "cortex-m4f", "--orders", "8", "--json", str(out)]) == 0
-    md = capsys.readouterr().out
+    md, data = _report(capsys, tmp_path, "cortex-m4f", 'name = "tt_d"\nloop = "right-looking"\nblock = 1\n'
+                       'scalar = "double"\npivoting = "partial"\n', "8")
     assert re.search(r"double on cortex-m4f: software floating point, \+\d\.\d KB, ~\d+x instructions", md)
-    data = json.loads(out.read_text())
     assert data[0]["kernel"] == "tt_d" and "__aeabi_dmul" in data[0]["runtime"]
     assert data[0]["runtime_bytes"] > 1000 and data[0]["instructions"]["8"]["total"] > 0
 
@@ -342,16 +344,11 @@ def test_report_says_when_no_matrix_fits_the_row(capsys, tmp_path):
     """A fixed order beyond what the row's RAM holds (cortex-m0: max_n = 16; n = 24 here): bytes and the static
     stack are still reported, the instruction columns stay empty, and the report says why instead of failing."""
     t = get("cortex-m0")
-    _usable(t)
     assert t.max_n < 24
-    spec = tmp_path / "s.toml"
-    spec.write_text('[[kernel]]\nname = "tt_f24"\nloop = "right-looking"\nscalar = "float"\npivoting = "partial"\n'
-                    'size = 24\n')
-    out = tmp_path / "r.json"
-    assert main(["report", str(spec), "--target", "cortex-m0", "--orders", "4", "--json", str(out)]) == 0
-    md = capsys.readouterr().out
+    md, entries = _report(capsys, tmp_path, "cortex-m0", 'name = "tt_f24"\nloop = "right-looking"\nscalar = "float"\n'
+                          'pivoting = "partial"\nsize = 24\n', "4")
     assert f"not counted: no matrix of order 24 fits the row's RAM (max_n = {t.max_n})" in md
-    data = json.loads(out.read_text())[0]
+    data = entries[0]
     assert data["kernel"] == "tt_f24" and data["instructions"] == {} and not data["problems"]
     assert data["factor"]["text"] > 0 and data["factor_stack"]["worst"] > 0
 
